@@ -1,0 +1,193 @@
+"""Run configuration: frozen dataclasses loaded from TOML and validated on load.
+
+Every section of ``configs/default.toml`` maps to one dataclass below.  Unknown
+keys and out-of-range values raise :class:`~prioritize.errors.ConfigError` naming
+the key (``section.key``) and the allowed values.  Command-line options override
+the file through :func:`with_overrides`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import ConfigError
+
+
+
+def _spec(default, *, lo=None, hi=None, choices=None, doc=""):
+    """A dataclass field carrying its allowed range or choices."""
+    return field(default=default, metadata={"lo": lo, "hi": hi, "choices": choices, "doc": doc})
+
+
+@dataclass(frozen=True)
+class PlanetConfig:
+    """The planet assumed to be engulfed (SCIENCE.md §1-2)."""
+
+    kind: str = _spec("gas_giant", choices=("gas_giant", "brown_dwarf", "rocky"),
+                      doc="composition class of the engulfed body")
+    mass_mjup: float = _spec(1.0, lo=1e-5, hi=80.0, doc="mass in Jupiter masses")
+    hydrogen_fraction: float = _spec(0.70, lo=0.0, hi=1.0,
+                                     doc="hydrogen mass fraction X_p (Jupiter ~0.70)")
+    a_li: float = _spec(3.26, lo=-2.0, hi=4.5, doc="A(Li) of the planet; meteoritic 3.26")
+    li_mass_fraction: float = _spec(1.5e-6, lo=0.0, hi=1e-3,
+                                    doc="Li mass fraction for rocky bodies (CI chondrite ~1.5e-6)")
+
+
+@dataclass(frozen=True)
+class ThresholdConfig:
+    """What counts as a signature."""
+
+    z_signature: float = _spec(3.0, lo=0.5, hi=20.0, doc="significance (sigma) of a signature")
+    min_lifetime_myr: float = _spec(1.0, lo=0.0, hi=1e4, doc="shortest useful signature lifetime")
+
+
+@dataclass(frozen=True)
+class BaselineConfig:
+    """The lithium baseline the enrichment is measured against."""
+
+    source: str = _spec("prior", choices=("prior",), doc="where the baseline comes from")
+    prior_scatter_dex: float = _spec(0.4, lo=0.05, hi=2.0,
+                                     doc="intrinsic scatter of the built-in prior (dex)")
+    measurement_error_dex: float = _spec(0.0, lo=0.0, hi=2.0,
+                                         doc="expected A(Li) measurement error, added in quadrature")
+
+
+@dataclass(frozen=True)
+class ScoringConfig:
+    """How the interim priority is formed."""
+
+    lifetime_scale_myr: float = _spec(10.0, lo=1e-3, hi=1e5,
+                                      doc="lifetime at which the lifetime weight reaches 1/2")
+    samples_per_star: int = _spec(64, lo=4, hi=4096,
+                                  doc="posterior samples carried through the chain per star")
+    seed: int = _spec(20261201, lo=0, hi=2**32 - 1, doc="random seed (results are deterministic)")
+
+
+@dataclass(frozen=True)
+class ClusterConfig:
+    """Cluster context used when the catalog has none (cluster mode)."""
+
+    age_gyr: float = _spec(float("nan"), lo=0.001, hi=14.0, doc="cluster age in Gyr")
+    feh: float = _spec(float("nan"), lo=-2.5, hi=0.7, doc="cluster [Fe/H]")
+    distance_pc: float = _spec(float("nan"), lo=1.0, hi=1e5, doc="cluster distance in pc")
+    ebv: float = _spec(float("nan"), lo=0.0, hi=5.0, doc="cluster E(B-V)")
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """Batching."""
+
+    batch_size: int = _spec(20000, lo=100, hi=10_000_000, doc="stars per batch")
+    top: int = _spec(15, lo=0, hi=10_000, doc="rows shown in the terminal table")
+
+
+@dataclass(frozen=True)
+class Config:
+    """The whole configuration."""
+
+    planet: PlanetConfig = field(default_factory=PlanetConfig)
+    thresholds: ThresholdConfig = field(default_factory=ThresholdConfig)
+    baseline: BaselineConfig = field(default_factory=BaselineConfig)
+    scoring: ScoringConfig = field(default_factory=ScoringConfig)
+    cluster: ClusterConfig = field(default_factory=ClusterConfig)
+    run: RunConfig = field(default_factory=RunConfig)
+    columns: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain nested dict (for provenance sidecars)."""
+        return dataclasses.asdict(self)
+
+
+_SECTIONS = {f.name: f for f in dataclasses.fields(Config)}
+
+
+def _check_value(section: str, f: dataclasses.Field, value: Any) -> Any:
+    key = f"{section}.{f.name}"
+    meta = f.metadata
+    expected = type(f.default)
+    if expected is bool:
+        if not isinstance(value, bool):
+            raise ConfigError(f"{key} must be true or false, got {value!r}")
+        return value
+    if expected in (int, float):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ConfigError(f"{key} must be a number, got {value!r}")
+        if expected is int and not float(value).is_integer():
+            raise ConfigError(f"{key} must be a whole number, got {value!r}")
+        value = expected(value)
+        lo, hi = meta.get("lo"), meta.get("hi")
+        if value != value and expected is float:  # NaN means "not set"
+            return value
+        if (lo is not None and value < lo) or (hi is not None and value > hi):
+            raise ConfigError(f"{key} = {value!r} is outside the allowed range {lo} to {hi}")
+        return value
+    if expected is str:
+        if not isinstance(value, str):
+            raise ConfigError(f"{key} must be text, got {value!r}")
+        choices = meta.get("choices")
+        if choices and value not in choices:
+            raise ConfigError(f"{key} = {value!r} is not allowed; choose one of: {', '.join(choices)}")
+        return value
+    return value
+
+
+def _build_section(name: str, raw: Any):
+    cls = _SECTIONS[name].default_factory().__class__
+    if name == "columns":
+        if not isinstance(raw, dict) or not all(isinstance(v, str) for v in raw.values()):
+            raise ConfigError("[columns] must map your column names to canonical names, e.g. Teff = \"teff_k\"")
+        return dict(raw)
+    if not isinstance(raw, dict):
+        raise ConfigError(f"[{name}] must be a table of keys")
+    known = {sf.name: sf for sf in dataclasses.fields(cls)}
+    values = {}
+    for key, value in raw.items():
+        if key not in known:
+            raise ConfigError(f"unknown key {name}.{key}; allowed keys in [{name}]: {', '.join(known)}")
+        values[key] = _check_value(name, known[key], value)
+    return cls(**values)
+
+
+def config_from_dict(raw: dict[str, Any]) -> Config:
+    """Validate a nested dict (as parsed from TOML) into a :class:`Config`."""
+    sections = {}
+    for name, value in raw.items():
+        if name not in _SECTIONS:
+            raise ConfigError(f"unknown section [{name}]; allowed sections: {', '.join(_SECTIONS)}")
+        sections[name] = _build_section(name, value)
+    return Config(**sections)
+
+
+def load_config(path: str | Path | None = None) -> Config:
+    """The defaults of the dataclasses (documented in ``configs/default.toml``),
+    overlaid with the user's TOML file if one is given; keys left out keep their default."""
+    if path is None:
+        return Config()
+    return config_from_dict(_read_toml(Path(path)))
+
+
+def _read_toml(path: Path) -> dict[str, Any]:
+    try:
+        with open(path, "rb") as fh:
+            return tomllib.load(fh)
+    except FileNotFoundError as exc:
+        raise ConfigError(f"config file {path} does not exist") from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
+
+
+def with_overrides(cfg: Config, overrides: dict[str, Any]) -> Config:
+    """Return a copy with ``{"section.key": value}`` overrides applied and validated."""
+    raw = cfg.to_dict()
+    for dotted, value in overrides.items():
+        if value is None:
+            continue
+        section, _, key = dotted.partition(".")
+        if section not in raw or (section != "columns" and key not in raw[section]):
+            raise ConfigError(f"unknown option {dotted}")
+        raw[section][key] = value
+    return config_from_dict(raw)
