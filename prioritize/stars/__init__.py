@@ -1,0 +1,1 @@
+"""Stars: photometry, stellar tracks, convective envelope, placing stars on tracks."""
