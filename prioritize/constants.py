@@ -32,3 +32,9 @@ A_LI_SUN = 1.05                              # solar photosphere, Asplund et al.
 X_SUN_PRESENT = 0.7381                       # Asplund et al. 2009, Table 4
 Z_SUN_TRACKS = 0.02                          # metallicity scale of the Hurley, Pols & Tout (2000) fits
 SECONDS_PER_YEAR = 3.15576e7                 # Julian year
+C_LIGHT_CGS = _c.c.cgs.value                 # exact (SI definition) via astropy
+H_PLANCK_CGS = _c.h.cgs.value                # exact (SI definition) via astropy
+M_ELECTRON_CGS = _c.m_e.cgs.value            # CODATA 2018 via astropy
+AMU_CGS = _u.u.to(_u.g)                      # atomic mass unit, m(12C)/12, CODATA 2018
+EV_ERG = _u.eV.to(_u.erg)                    # exact (SI definition)
+A_RAD_CGS = 4.0 * SIGMA_SB_CGS / C_LIGHT_CGS  # radiation density constant a = 4 sigma / c
