@@ -36,18 +36,16 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import NamedTuple
 
-import astropy.constants as _c
-import astropy.units as _u
 import numpy as np
 from scipy.optimize import least_squares
 
 from .catalog.status import STAGE_ALIASES, STAGES
-from .constants import G_CGS, M_JUP_MSUN, M_SUN_G, R_SUN_CM
+from .constants import C_LIGHT_CGS, G_CGS, M_JUP_MSUN, M_SUN_G, R_SUN_CM
 from .errors import ModelRangeError, PrioritizeError
 
 SECONDS_PER_DAY = 86400.0                    # exact, by definition
 R_SUN_KM = R_SUN_CM / 1e5                    # IAU 2015 nominal solar radius
-C_KMS = _c.c.to(_u.km / _u.s).value          # speed of light, exact (SI definition)
+C_KMS = C_LIGHT_CGS / 1e5                   # speed of light (km/s)
 
 # Dimensionless moment of inertia k² = I/(M R²) [from memory, SCIENCE.md §11; the two
 # polytropes are re-derived from the Lane-Emden equation in tests/test_rotation.py].
