@@ -1,0 +1,761 @@
+"""Reading catalogs into the canonical table, and writing result tables atomically.
+
+This is the package's file edge: nothing downstream reads or writes files.
+
+Readers accept CSV (``.csv``, ``.csv.gz``, ``.tsv``), Parquet (``.parquet``, ``.pq``),
+FITS (``.fits``, ``.fit``, ``.fits.gz``; the first table extension), ECSV (``.ecsv``)
+and VOTable (``.vot``, ``.votable``, ``.xml``).  Whatever the format, the result is a
+:class:`pandas.DataFrame` in which missing or masked values are NaN, text is ``str``
+(bytes decoded as UTF-8, blank text is missing), and integers with gaps become floats
+(except identifiers, which stay exact text).
+
+Writers choose the format from the extension, write to a temporary file in the same
+folder and rename it into place, so a reader never sees a half-written table.
+Provenance (tool version, configuration, creation time, caution) goes into the file's
+own metadata, or a ``<file>.meta.json`` sidecar for CSV.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import gzip
+import json
+import os
+import re
+import tempfile
+import warnings
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from prioritize import CAUTION, __version__
+from prioritize.catalog.columns import (INPUT_COLUMNS, OUTPUT_COLUMNS, TEXT, check_column_map,
+                                        recognise, row_number_ids)
+from prioritize.errors import CatalogError, ConfigError
+
+ACCEPTED_FORMATS = ("CSV (.csv, .csv.gz, .tsv), Parquet (.parquet, .pq), FITS (.fits, .fit, "
+                    ".fits.gz; first table extension), ECSV (.ecsv), VOTable (.vot, .votable, .xml)")
+
+_EXTENSIONS = {
+    ".csv": "csv", ".csv.gz": "csv", ".tsv": "tsv", ".tsv.gz": "tsv",
+    ".parquet": "parquet", ".pq": "parquet",
+    ".fits": "fits", ".fit": "fits", ".fits.gz": "fits",
+    ".ecsv": "ecsv",
+    ".vot": "votable", ".votable": "votable", ".xml": "votable",
+}
+_WRITABLE = {ext: fmt for ext, fmt in _EXTENSIONS.items() if ext != ".fits.gz"}
+_FORMAT_NAMES = {"csv": "CSV", "tsv": "tab-separated text", "parquet": "Parquet", "fits": "FITS",
+                 "ecsv": "ECSV", "votable": "VOTable"}
+
+METADATA_KEY = "prioritize_metadata"   # Parquet schema key / VOTable INFO name
+FITS_METADATA_KEYWORD = "PRMETA"       # FITS header keyword (long string, CONTINUE cards)
+SIDECAR_SUFFIX = ".meta.json"
+
+_TEXT_COLUMNS = frozenset([n for n, s in INPUT_COLUMNS.items() if s.dtype == TEXT]
+                          + [n for n, s in OUTPUT_COLUMNS.items() if s.dtype == TEXT])
+_RESERVED = frozenset(OUTPUT_COLUMNS) - frozenset(INPUT_COLUMNS)
+
+# Units a typed file (FITS, ECSV, VOTable) may declare and that are converted on reading.
+_CONVERTIBLE_UNITS = {"deg": "deg", "mas": "mas", "pc": "pc", "K": "K", "d": "d",
+                      "km/s": "km / s", "Gyr": "Gyr", "Msun": "solMass"}
+# Unit strings written into typed outputs (astropy spelling).
+_WRITE_UNITS = {**_CONVERTIBLE_UNITS, "Rsun": "solRad", "Myr": "Myr", "mag": "mag"}
+
+
+# ----------------------------------------------------------------------------- formats
+
+def table_format(path: str | os.PathLike, writing: bool = False) -> str:
+    """The format key (``csv``, ``tsv``, ``parquet``, ``fits``, ``ecsv``, ``votable``)
+    from a file name's extension.
+
+    Raises
+    ------
+    CatalogError
+        The extension is not one of the accepted ones.
+    """
+    name = Path(path).name.lower()
+    table = _WRITABLE if writing else _EXTENSIONS
+    for ext in sorted(table, key=len, reverse=True):
+        if name.endswith(ext):
+            return table[ext]
+    accepted = ", ".join(sorted(table))
+    raise CatalogError(f"unknown file type; use one of the extensions {accepted} "
+                       f"({ACCEPTED_FORMATS})", path=str(path))
+
+
+# ----------------------------------------------------------------------------- reading
+
+def read_catalog(path: str | os.PathLike,
+                 column_map: dict[str, str] | None = None) -> tuple[pd.DataFrame, list[str]]:
+    """Read a candidate catalog and give its columns the canonical names.
+
+    Columns named in ``column_map`` (``{your_name: canonical_name}``) are renamed first;
+    the others are matched against the recognised spellings of
+    :data:`prioritize.catalog.columns.INPUT_COLUMNS`, ignoring case.  Columns that are
+    not recognised are kept unchanged (they pass through to the output); one whose name
+    is an output column (``rank``, ``status``, ...) is kept as ``input_<name>``.
+    When the file declares units (FITS, ECSV, VOTable) in a form convertible to the
+    canonical unit (e.g. parallax in arcsec), values are converted.  Without a
+    ``star_id`` column, stars are named ``row1``, ``row2``, ... by their 1-based row.
+    Values are not checked here: see :func:`prioritize.catalog.validate.validate_catalog`.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The catalog file; the format follows the extension (see :data:`ACCEPTED_FORMATS`).
+    column_map : dict, optional
+        ``{your_column: canonical_name}``, e.g. from ``[columns]`` in the config or
+        :func:`parse_column_option`.
+
+    Returns
+    -------
+    table : pandas.DataFrame
+        All rows, in file order, with canonical names.
+    messages : list of str
+        What was renamed, converted or made up, in words.
+
+    Raises
+    ------
+    CatalogError
+        The file is missing or unreadable, has no data rows, two of its columns stand
+        for one canonical column, or a mapped column is absent.
+    ConfigError
+        ``column_map`` maps to a name that is not a canonical column.
+    """
+    path = _existing_file(path)
+    fmt = _sniff_format(path, table_format(path))
+    user_map = check_column_map(column_map or {})
+    if fmt in ("csv", "tsv"):
+        header = _csv_header(path, fmt)
+        renames, messages = map_columns(header, user_map, path)
+        text_columns = [c for c in header if renames.get(c, c) in _TEXT_COLUMNS]
+        raw, units = _read_csv(path, fmt, text_columns), {}
+    else:
+        raw, units, messages = _read_typed(path, fmt)
+        renames, map_messages = map_columns(list(raw.columns), user_map, path)
+        messages = map_messages + messages
+    if raw.empty:
+        raise CatalogError("has no data rows", path=str(path))
+    table = _normalise(raw.rename(columns=renames), id_column="star_id")
+    messages += _convert_units(table, {renames.get(c, c): u for c, u in units.items()}, path)
+    messages += _ensure_star_id(table)
+    return table, messages
+
+
+def read_table(path: str | os.PathLike) -> tuple[pd.DataFrame, dict]:
+    """Read back a table this package wrote (e.g. a ranked list), names unchanged.
+
+    Returns
+    -------
+    table : pandas.DataFrame
+        Missing values as NaN; text columns as ``str``.
+    metadata : dict
+        The provenance stored with the table by :func:`write_table` (empty if none).
+
+    Raises
+    ------
+    CatalogError
+        The file is missing or unreadable.
+    """
+    path = _existing_file(path)
+    fmt = _sniff_format(path, table_format(path))
+    if fmt in ("csv", "tsv"):
+        header = _csv_header(path, fmt)
+        raw = _read_csv(path, fmt, [c for c in header if c in _TEXT_COLUMNS])
+        metadata = _read_sidecar(path)
+    else:
+        raw, _units, _messages = _read_typed(path, fmt)
+        metadata = raw.attrs.pop("metadata", {})
+    return _normalise(raw, id_column="star_id" if "star_id" in raw else None), metadata
+
+
+def map_columns(names: list[str], column_map: dict[str, str],
+                path: str | os.PathLike | None = None) -> tuple[dict[str, str], list[str]]:
+    """Decide the renaming ``{file_column: new_name}`` of a catalog's columns.
+
+    Parameters
+    ----------
+    names : list of str
+        The file's column names.
+    column_map : dict
+        ``{your_column: canonical_name}``, already checked by
+        :func:`prioritize.catalog.columns.check_column_map`.  A key may differ from the
+        file's spelling in case only.
+    path : path-like, optional
+        Named in error messages.
+
+    Returns
+    -------
+    renames : dict
+        Only the columns whose name changes.
+    messages : list of str
+        One line per renamed column, plus the columns kept unchanged.
+
+    Raises
+    ------
+    CatalogError
+        A mapped column is not in the file, or two columns stand for one canonical name.
+    """
+    where = None if path is None else str(path)
+    names = [str(n) for n in names]
+    lower = {}
+    for n in names:
+        lower.setdefault(n.lower(), []).append(n)
+    renames: dict[str, str] = {}
+    owner: dict[str, tuple[str, bool]] = {}   # canonical -> (file column, mapped by the user)
+    messages: list[str] = []
+    for source, target in column_map.items():
+        candidates = [source] if source in names else lower.get(source.lower(), [])
+        if len(candidates) != 1:
+            raise CatalogError(f"column {source!r} named in the column map is not in the file; "
+                               f"its columns are: {', '.join(names)}", path=where, column=source)
+        found = candidates[0]
+        owner[target] = (found, True)
+        if found != target:
+            renames[found] = target
+        messages.append(f"column {found!r} read as {target}{_unit_words(target)} (column map)")
+    mapped_by_user = {found for found, _ in owner.values()}
+    passed_through = []
+    for name in names:
+        if name in mapped_by_user:
+            continue
+        target = recognise(name)
+        if target is None:
+            if name.lower() in _RESERVED:
+                renames[name] = f"input_{name}"
+                messages.append(f"column {name!r} kept as input_{name} "
+                                "(its name is taken by an output column)")
+            else:
+                passed_through.append(name)
+            continue
+        if target in owner:
+            other, by_user = owner[target]
+            if by_user and name != target:
+                passed_through.append(name)
+                messages.append(f"column {name!r} not read as {target}: the column map reads "
+                                f"{other!r} as {target}")
+                continue
+            if by_user:
+                raise CatalogError(f"the file already has a column {name!r}, the name the column "
+                                   f"map gives {other!r}; rename or drop one of them",
+                                   path=where, column=name)
+            raise CatalogError(
+                f"columns {other!r} and {name!r} both stand for {target}; choose one with the "
+                f"column map (e.g. --columns '{other}={target}'), or rename or drop the other",
+                path=where, column=name)
+        owner[target] = (name, False)
+        if name != target:
+            renames[name] = target
+            messages.append(f"column {name!r} read as {target}{_unit_words(target)}")
+    if passed_through:
+        messages.append("kept unchanged (not a known column): " + ", ".join(passed_through))
+    return renames, messages
+
+
+def parse_column_option(items: list[str] | tuple[str, ...] | None) -> dict[str, str]:
+    """Parse ``--columns`` values into ``{your_column: canonical_name}``.
+
+    Each item is ``yourname=canonical`` or several of them separated by commas, e.g.
+    ``["Teff=teff_k", "plx=parallax_mas,e_plx=parallax_mas_err"]``.  Blanks around names
+    are ignored; the last ``=`` separates the two names.
+
+    Raises
+    ------
+    ConfigError
+        An item has no ``=``, a name is empty, the target is not a canonical column,
+        one column is mapped twice to different names, or two columns to one name.
+    """
+    mapping: dict[str, str] = {}
+    for item in items or ():
+        for part in str(item).split(","):
+            if not part.strip():
+                continue
+            source, sep, target = part.rpartition("=")
+            if not sep:
+                raise ConfigError(f"--columns {part.strip()!r} has no '='; write yourname=canonical_name, "
+                                  "e.g. --columns Teff=teff_k")
+            source, target = source.strip(), target.strip()
+            if source in mapping and mapping[source] != target:
+                raise ConfigError(f"--columns maps {source!r} twice ({mapping[source]!r} and {target!r}); "
+                                  "give it once")
+            check_column_map({source: target})
+            mapping[source] = target
+    return check_column_map(mapping)
+
+
+def _unit_words(name: str) -> str:
+    unit = INPUT_COLUMNS[name].unit
+    return f" ({unit})" if unit else ""
+
+
+def _existing_file(path: str | os.PathLike) -> Path:
+    path = Path(path)
+    if not path.exists():
+        raise CatalogError(f"does not exist; give a catalog file ({ACCEPTED_FORMATS})", path=str(path))
+    if not path.is_file():
+        raise CatalogError(f"is not a file; give a catalog file ({ACCEPTED_FORMATS})", path=str(path))
+    return path
+
+
+def _sniff_format(path: Path, fmt: str) -> str:
+    """An ECSV file saved with a .csv extension is read as ECSV."""
+    if fmt == "csv" and not path.name.lower().endswith(".gz"):
+        with open(path, "rb") as fh:
+            if fh.read(7) == b"# %ECSV":
+                return "ecsv"
+    return fmt
+
+
+def _unreadable(path: Path, fmt: str, exc: Exception, row: int | None = None) -> CatalogError:
+    return CatalogError(f"cannot be read as {_FORMAT_NAMES[fmt]} ({str(exc).strip()}); accepted "
+                        f"formats: {ACCEPTED_FORMATS}", path=str(path), row=row)
+
+
+def _not_utf8(path: Path) -> CatalogError:
+    return CatalogError("is not UTF-8 text; save it as UTF-8 (or as Parquet or FITS)",
+                        path=str(path), row=_first_undecodable_row(path, _comment_lines(path)))
+
+
+def _comment_lines(path: Path) -> int:
+    """Number of leading lines that start with '#' (header comments)."""
+    count = 0
+    with _open_text(path) as fh:
+        for line in fh:
+            if not line.startswith("#"):
+                break
+            count += 1
+    return count
+
+
+def _open_text(path: Path):
+    if path.name.lower().endswith(".gz"):
+        return gzip.open(path, "rt", encoding="utf-8-sig", errors="replace")
+    return open(path, encoding="utf-8-sig", errors="replace")
+
+
+def _csv_header(path: Path, fmt: str) -> list[str]:
+    try:
+        return [str(c) for c in pd.read_csv(path, sep="\t" if fmt == "tsv" else ",", nrows=0,
+                                            skiprows=_comment_lines(path), encoding="utf-8-sig").columns]
+    except pd.errors.EmptyDataError as exc:
+        raise CatalogError(f"is empty (no header line); accepted formats: {ACCEPTED_FORMATS}",
+                           path=str(path)) from exc
+    except UnicodeDecodeError as exc:
+        raise _not_utf8(path) from exc
+    except (OSError, ValueError) as exc:
+        raise _unreadable(path, fmt, exc) from exc
+
+
+def _read_csv(path: Path, fmt: str, text_columns: list[str]) -> pd.DataFrame:
+    skipped = _comment_lines(path)
+    try:
+        return pd.read_csv(path, sep="\t" if fmt == "tsv" else ",", skiprows=skipped,
+                           dtype={c: str for c in text_columns}, encoding="utf-8-sig",
+                           low_memory=False, float_precision="round_trip")
+    except pd.errors.ParserError as exc:
+        ragged = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+        if ragged is None:
+            raise _unreadable(path, fmt, exc) from exc
+        expected, line, saw = (int(g) for g in ragged.groups())
+        raise CatalogError(f"has {saw} values but the header has {expected} columns; check the "
+                           "separators and quotes on that line", path=str(path),
+                           row=line - skipped - 1) from exc
+    except UnicodeDecodeError as exc:
+        raise _not_utf8(path) from exc
+    except (OSError, ValueError) as exc:
+        raise _unreadable(path, fmt, exc) from exc
+
+
+def _first_undecodable_row(path: Path, skipped: int) -> int | None:
+    """1-based data row of the first line that is not UTF-8 (None if in the header)."""
+    opener = gzip.open if path.name.lower().endswith(".gz") else open
+    with opener(path, "rb") as fh:
+        for index, line in enumerate(fh):
+            try:
+                line.decode("utf-8")
+            except UnicodeDecodeError:
+                return index - skipped if index > skipped else None
+    return None
+
+
+def _read_typed(path: Path, fmt: str) -> tuple[pd.DataFrame, dict, list[str]]:
+    """Parquet, FITS, ECSV or VOTable -> (frame, {column: astropy unit}, messages).
+    The stored provenance, if any, is left in ``frame.attrs['metadata']``."""
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            if fmt == "parquet":
+                return _read_parquet(path)
+            table, metadata = _read_astropy(path, fmt)
+    except CatalogError:
+        raise
+    except Exception as exc:  # any parser failure of a third-party reader is a bad file
+        raise _unreadable(path, fmt, exc) from exc
+    frame, units, messages = _table_to_frame(table)
+    frame.attrs["metadata"] = metadata
+    return frame, units, messages
+
+
+def _read_parquet(path: Path) -> tuple[pd.DataFrame, dict, list[str]]:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    arrow = pq.read_table(path)
+    frame = arrow.to_pandas(
+        types_mapper=lambda t: pd.Int64Dtype() if pa.types.is_integer(t) else None)
+    stored = (arrow.schema.metadata or {}).get(METADATA_KEY.encode())
+    frame.attrs["metadata"] = json.loads(stored) if stored else {}
+    return frame, {}, []
+
+
+def _read_astropy(path: Path, fmt: str):
+    from astropy.table import Table
+
+    if fmt == "fits":
+        from astropy.io import fits
+
+        with fits.open(path) as hdul:
+            index = next((i for i, hdu in enumerate(hdul)
+                          if isinstance(hdu, (fits.BinTableHDU, fits.TableHDU))), None)
+        if index is None:
+            raise CatalogError("has no table extension (FITS images are not catalogs)", path=str(path))
+        table = Table.read(path, format="fits", hdu=index)
+        stored = table.meta.get(FITS_METADATA_KEYWORD)
+        return table, json.loads(stored) if stored else {}
+    if fmt == "ecsv":
+        table = Table.read(path, format="ascii.ecsv")
+        return table, dict(table.meta)
+    from astropy.io import votable
+
+    document = votable.parse(str(path), verify="ignore")
+    infos = [info for resource in document.resources for info in resource.infos]
+    stored = next((info.value for info in infos if info.name == METADATA_KEY), None)
+    return document.get_first_table().to_table(), json.loads(stored) if stored else {}
+
+
+def _table_to_frame(table) -> tuple[pd.DataFrame, dict, list[str]]:
+    """astropy Table -> DataFrame: masked -> NaN (integers -> nullable Int64), native byte order."""
+    data, units, messages = {}, {}, []
+    for name in table.colnames:
+        column = table[name]
+        if column.ndim > 1:
+            messages.append(f"column {name!r} holds {column.shape[1:]} values per row and was skipped")
+            continue
+        values = np.asarray(column)
+        mask = np.ma.getmaskarray(column) if getattr(column, "mask", None) is not None else None
+        values = values.astype(values.dtype.newbyteorder("="), copy=False)
+        if values.dtype.kind in "iu":
+            series = pd.array(values, dtype="Int64")
+            if mask is not None:
+                series[mask] = pd.NA
+        elif values.dtype.kind == "f":
+            series = np.where(mask, np.nan, values) if mask is not None else values
+        elif values.dtype.kind == "b" and mask is not None and mask.any():
+            series = np.where(mask, np.nan, values.astype(object))
+        elif values.dtype.kind in "SUO":
+            series = values.astype(object)
+            if mask is not None:
+                series[mask] = np.nan
+        else:
+            series = values
+        data[name] = series
+        if column.unit is not None:
+            units[name] = column.unit
+    return pd.DataFrame(data), units, messages
+
+
+def _normalise(frame: pd.DataFrame, id_column: str | None) -> pd.DataFrame:
+    """One representation whatever the reader: text as str with NaN for missing or blank,
+    nullable integers as int64 (float64 if gaps), nullable booleans as objects with NaN."""
+    out = {}
+    for name in frame.columns:
+        series = frame[name]
+        dtype = series.dtype
+        if isinstance(dtype, pd.CategoricalDtype):
+            series = series.astype(object).where(series.notna(), np.nan)
+            dtype = series.dtype
+        if name == id_column or name in _TEXT_COLUMNS:
+            out[name] = _as_text(series)
+        elif isinstance(dtype, pd.BooleanDtype):
+            out[name] = (series.astype(bool) if not series.isna().any()
+                         else series.astype(object).where(series.notna(), np.nan))
+        elif pd.api.types.is_extension_array_dtype(dtype) and pd.api.types.is_numeric_dtype(dtype):
+            out[name] = (series.astype(np.int64) if pd.api.types.is_integer_dtype(dtype)
+                         and not series.isna().any() else series.astype(np.float64))
+        elif dtype == object or pd.api.types.is_string_dtype(dtype):
+            out[name] = _text_or_flags(series)
+        else:
+            out[name] = series
+    return pd.DataFrame(out, index=frame.index)
+
+
+def _as_text(series: pd.Series) -> pd.Series:
+    """Exact text: integers without '.0', bytes decoded, blanks stripped, blank -> NaN."""
+    if pd.api.types.is_integer_dtype(series.dtype):
+        text = series.astype("Int64").astype(str).where(series.notna(), np.nan)
+    elif pd.api.types.is_float_dtype(series.dtype):
+        whole = series.notna() & (series == series.round())
+        text = series.astype(object).where(series.notna(), np.nan)
+        text[whole] = series[whole].astype(np.int64).astype(str)
+        text[series.notna() & ~whole] = series[series.notna() & ~whole].astype(str)
+    else:
+        text = series.map(_decode, na_action="ignore")
+    text = text.astype(object).where(text.notna(), np.nan)
+    stripped = text.str.strip()
+    return stripped.where(stripped != "", np.nan).astype("str")
+
+
+def _decode(value):
+    return value.decode("utf-8", errors="replace") if isinstance(value, bytes) else str(value)
+
+
+def _text_or_flags(series: pd.Series) -> pd.Series:
+    """Bytes decoded and blank text -> NaN; a column holding only True/False (as text or
+    booleans) with gaps becomes objects True/False/NaN."""
+    values = series.map(lambda v: v.decode("utf-8", errors="replace") if isinstance(v, bytes) else v,
+                        na_action="ignore")
+    present = values.notna()
+    if present.any():
+        kinds = values[present].map(type).unique()
+        if all(k is str for k in kinds):
+            blank = present & (values.astype(object).where(present, "x").str.strip() == "")
+            values = values.where(~blank, np.nan)
+            present = values.notna()
+            if present.any() and values[present].isin(["True", "False"]).all():
+                return values.map({"True": True, "False": False}).astype(object).where(present, np.nan)
+        elif all(k in (bool, np.bool_) for k in kinds):
+            return values.astype(object).where(present, np.nan)
+    return values
+
+
+def _convert_units(table: pd.DataFrame, units: dict, path: Path) -> list[str]:
+    """Convert columns whose file unit differs from the canonical one (in place)."""
+    import astropy.units as u
+
+    messages = []
+    for name, unit in units.items():
+        spec = INPUT_COLUMNS.get(name)
+        if spec is None or spec.unit not in _CONVERTIBLE_UNITS or isinstance(unit, u.UnrecognizedUnit):
+            continue
+        canonical = u.Unit(_CONVERTIBLE_UNITS[spec.unit])
+        if unit == canonical:
+            continue
+        try:
+            factor = unit.to(canonical)
+        except u.UnitConversionError as exc:
+            raise CatalogError(f"the file gives unit {unit} but {name} needs {spec.unit}; check "
+                               "the column map", path=str(path), column=name) from exc
+        table[name] = pd.to_numeric(table[name], errors="coerce") * factor
+        messages.append(f"column {name} converted from {unit} to {spec.unit}")
+    return messages
+
+
+def _ensure_star_id(table: pd.DataFrame) -> list[str]:
+    """Name stars without an identifier by their 1-based row number (in place)."""
+    if "star_id" not in table:
+        table.insert(0, "star_id", pd.array(row_number_ids(np.arange(len(table))), dtype="str"))
+        return ["no star_id column: stars are named by their 1-based row number (row1, row2, ...)"]
+    missing = table["star_id"].isna().to_numpy()
+    if not missing.any():
+        return []
+    ids = table["star_id"].to_numpy(dtype=object, copy=True)
+    ids[missing] = row_number_ids(np.flatnonzero(missing))
+    table["star_id"] = pd.array(ids, dtype="str")
+    return [f"{int(missing.sum())} rows without star_id are named by their row number (row<N>)"]
+
+
+# ----------------------------------------------------------------------------- writing
+
+def provenance_metadata(config: dict | None = None, **extra) -> dict:
+    """The metadata written with every output: tool, version, UTC creation time,
+    caution, and the configuration used (a plain dict), plus any ``extra`` items."""
+    return {"tool": "prioritize", "version": __version__,
+            "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+            "caution": CAUTION, "config": config if config is not None else {}, **extra}
+
+
+def write_table(table: pd.DataFrame, path: str | os.PathLike, metadata: dict | None = None) -> Path:
+    """Write a table atomically; the format follows the extension.
+
+    CSV (``.csv``, ``.csv.gz``, ``.tsv``), Parquet (``.parquet``, ``.pq``), FITS
+    (``.fits``, ``.fit``), ECSV (``.ecsv``) or VOTable (``.vot``, ``.votable``, ``.xml``).
+    The table goes to a temporary file in the target folder that is renamed over the
+    target only when complete; on failure the target is untouched and the temporary
+    file removed.  ``metadata`` (see :func:`provenance_metadata`) is stored in the
+    Parquet schema metadata, the FITS header (keyword ``PRMETA``, JSON), the ECSV
+    header or a VOTable INFO element; for CSV in a sidecar ``<path>.meta.json``.
+    Text columns become fixed-width UTF-8 in FITS; missing text is written empty.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+
+    Raises
+    ------
+    CatalogError
+        Unknown extension, missing folder, or the write failed.
+    """
+    path = Path(path)
+    fmt = table_format(path, writing=True)
+    if not path.parent.is_dir():
+        raise CatalogError(f"cannot be written: folder {path.parent} does not exist", path=str(path))
+    metadata = _plain_json(metadata or {})
+    writer = _WRITERS[fmt]
+    try:
+        with _atomic_target(path) as temporary:
+            writer(table, temporary, metadata, path)
+        if fmt in ("csv", "tsv") and metadata:
+            sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
+            with _atomic_target(sidecar) as temporary:
+                temporary.write_text(json.dumps(metadata, indent=2, sort_keys=True), encoding="utf-8")
+    except CatalogError:
+        raise
+    except (OSError, ValueError, TypeError) as exc:
+        raise CatalogError(f"cannot be written as {_FORMAT_NAMES[fmt]}: {exc}", path=str(path)) from exc
+    return path
+
+
+def _plain_json(value):
+    """Metadata as strict JSON types: NaN/inf -> None (not set), numpy scalars -> Python,
+    anything else unknown -> its text."""
+    if isinstance(value, dict):
+        return {str(k): _plain_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain_json(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    if value is None or isinstance(value, (str, int, float, bool)):
+        return value
+    return str(value)
+
+
+@contextlib.contextmanager
+def _atomic_target(path: Path):
+    """Yield a temporary path beside ``path``; rename it onto ``path`` on success,
+    delete it on failure."""
+    handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    os.close(handle)
+    temporary = Path(name)
+    try:
+        yield temporary
+        os.chmod(temporary, 0o666 & ~_umask())
+        os.replace(temporary, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            temporary.unlink()
+        raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _write_csv(table: pd.DataFrame, path: Path, metadata: dict, target: Path) -> None:
+    compression = "gzip" if target.name.lower().endswith(".gz") else None
+    table.to_csv(path, sep="\t" if table_format(target) == "tsv" else ",", index=False,
+                 compression=compression)
+
+
+def _write_parquet(table: pd.DataFrame, path: Path, metadata: dict, target: Path) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    arrow = pa.Table.from_pandas(_plain_objects(table), preserve_index=False)
+    stored = {**(arrow.schema.metadata or {}), METADATA_KEY.encode(): json.dumps(metadata).encode()}
+    pq.write_table(arrow.replace_schema_metadata(stored), path)
+
+
+def _write_astropy(table: pd.DataFrame, path: Path, metadata: dict, target: Path) -> None:
+    fmt = table_format(target, writing=True)
+    out = _to_astropy(_plain_objects(table), fmt)
+    if fmt == "fits":
+        if metadata:
+            out.meta[FITS_METADATA_KEYWORD] = json.dumps(metadata, ensure_ascii=True)
+            if "caution" in metadata:
+                out.meta["comments"] = [str(metadata["caution"])]
+        out.write(path, format="fits", overwrite=True)
+    elif fmt == "ecsv":
+        out.meta.update(metadata)
+        out.write(path, format="ascii.ecsv", overwrite=True)
+    else:
+        from astropy.io.votable import from_table
+        from astropy.io.votable.tree import Info
+
+        document = from_table(out)
+        if metadata:
+            document.resources[0].infos.append(Info(name=METADATA_KEY, value=json.dumps(metadata)))
+        document.to_xml(str(path))
+
+
+_WRITERS = {"csv": _write_csv, "tsv": _write_csv, "parquet": _write_parquet,
+            "fits": _write_astropy, "ecsv": _write_astropy, "votable": _write_astropy}
+
+
+def _plain_objects(table: pd.DataFrame) -> pd.DataFrame:
+    """Object columns mixing types (numbers and text) become text, so every writer accepts them."""
+    out = table.copy()
+    for name in out.columns:
+        if out[name].dtype == object:
+            present = out[name].notna()
+            kinds = set(out[name][present].map(type))
+            if len(kinds) > 1 and not kinds <= {bool, np.bool_}:
+                out[name] = out[name].map(str, na_action="ignore")
+    return out
+
+
+def _to_astropy(table: pd.DataFrame, fmt: str):
+    """DataFrame -> astropy Table with masks for gaps, units and descriptions.
+
+    FITS has no null for text or logical columns: text is stored as fixed-width UTF-8
+    (missing -> empty) and booleans with gaps as the text True/False (read back by
+    :func:`read_table` as booleans)."""
+    import astropy.units as u
+    from astropy.table import Column, MaskedColumn, Table
+
+    out = Table()
+    for name in table.columns:
+        series = table[name]
+        missing = series.isna().to_numpy()
+        dtype = series.dtype
+        if pd.api.types.is_bool_dtype(dtype) and not missing.any():
+            values = series.to_numpy(dtype=bool)
+        elif pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype):
+            values = (series.to_numpy() if not isinstance(dtype, pd.api.extensions.ExtensionDtype)
+                      else series.to_numpy(dtype=np.float64, na_value=np.nan))
+        else:
+            present = series[~missing].astype(object)
+            flags = present.map(type).isin([bool, np.bool_]).all() and len(present) > 0
+            if flags and fmt != "fits":
+                values = np.ma.MaskedArray(series.astype(object).where(~missing, False).to_numpy(dtype=bool),
+                                           mask=missing)
+            else:
+                text = series.astype(object).where(~missing, "").map(str).to_numpy(dtype=str)
+                if fmt == "fits":
+                    encoded = np.char.encode(text, "utf-8")
+                    values = encoded.astype(f"S{max(1, encoded.dtype.itemsize)}")
+                else:
+                    values = np.ma.MaskedArray(text, mask=missing)
+        spec = OUTPUT_COLUMNS.get(name) or INPUT_COLUMNS.get(name)
+        unit = _WRITE_UNITS.get(spec.unit) if spec is not None else None
+        kind = MaskedColumn if np.ma.is_masked(values) else Column
+        column = kind(values, name=str(name), unit=u.Unit(unit) if unit else None,
+                      description=spec.description if spec is not None else None)
+        out.add_column(column)
+    return out
+
+
+def _read_sidecar(path: Path) -> dict:
+    sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
+    if not sidecar.exists():
+        return {}
+    try:
+        return json.loads(sidecar.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise CatalogError(f"metadata sidecar is not readable JSON ({exc})", path=str(sidecar)) from exc
