@@ -33,15 +33,15 @@ import astropy.units as u
 import numpy as np
 
 from .errors import PrioritizeError, PrioritizeWarning
+from .spectra import LI6708_WAVELENGTH_A, _require
+from .stars.photometry import A_6708_OVER_A_V
 
 if TYPE_CHECKING:
     from .instruments import Instrument
 
-LI6708_WAVELENGTH_A = 6707.8
 F_LAMBDA_RC_ZERO = 217.7e-11   # erg s^-1 cm^-2 A^-1 at R_C = 0; Bessell, Castelli & Plez 1998, Table A2
 PHOTONS_RC_ZERO_6708 = F_LAMBDA_RC_ZERO / (const.h.cgs.value * const.c.cgs.value / (LI6708_WAVELENGTH_A * 1e-8))
 """Photons s^-1 cm^-2 A^-1 at 6708 A for R_C = 0 (735; SCIENCE.md §7)."""
-A6708_PER_AV = 0.795           # A(6708 A)/A_V, Cardelli, Clayton & Mathis 1989 law, R_V = 3.1 (SCIENCE.md §6)
 DEFAULT_EXTINCTION_COEFF = 0.07  # mag per airmass near 6700 A at a good site (SCIENCE.md §7)
 
 # Cousins R from V: V - R_C = 0.508 (B - V) + 0.040, for 0.3 < B - V < 0.9.
@@ -76,12 +76,6 @@ def _count_value(quantity, unit, name: str, function: str):
     if isinstance(quantity, u.Quantity) and quantity.unit.is_equivalent(u.electron * unit):
         quantity = quantity / u.electron
     return _value(quantity, unit, name, function)
-
-
-def _require(condition, message: str) -> None:
-    """Raise a package error if any entry breaks ``condition`` (NaN passes through)."""
-    if np.any(~np.asarray(condition)):
-        raise PrioritizeError(message)
 
 
 def _warn_outside(colour, bounds, name: str, function: str) -> None:
@@ -212,7 +206,7 @@ def photon_flux_6708(r_c_mag, a_v=0.0, airmass=1.0, extinction_coeff=DEFAULT_EXT
                                                     (r_c_mag, a_v, airmass, extinction_coeff)))
     _require(~(airmass < 1), "photon_flux_6708: airmass must be at least 1")
     _require(~(a_v < 0), "photon_flux_6708: a_v must not be negative")
-    return PHOTONS_RC_ZERO_6708 * 10.0 ** (-0.4 * (r_c_mag + A6708_PER_AV * a_v + k * airmass))
+    return PHOTONS_RC_ZERO_6708 * 10.0 ** (-0.4 * (r_c_mag + A_6708_OVER_A_V * a_v + k * airmass))
 
 
 def signal_rate_per_pixel(r_c_mag, telescope_area, throughput, pixel_width, *, a_v=0.0,

@@ -25,6 +25,8 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
+import astropy.constants as const
+import astropy.units as u
 import numpy as np
 
 from .constants import K_B_CGS
@@ -33,8 +35,8 @@ from .errors import PrioritizeError
 if TYPE_CHECKING:
     from .instruments import Instrument
 
-C_KMS = 299792.458                      # speed of light (km/s), exact (SI definition)
-AMU_G = 1.66053906660e-24               # atomic mass unit (g), CODATA 2018
+C_KMS = const.c.to_value(u.km / u.s)    # speed of light (km/s), via astropy
+AMU_G = u.u.to(u.g)                     # atomic mass unit (g), CODATA via astropy
 MASS_LI7_U = 7.016003                   # 7Li atomic mass (u), AME2016 (Wang et al. 2017)
 
 LI6708_WAVELENGTH_A = 6707.8            # gf-weighted centre of the 7Li doublet (air), SCIENCE.md §9
