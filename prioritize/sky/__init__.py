@@ -1,0 +1,20 @@
+"""The sky of a site: observability, the night plan and the semester table.
+
+Layout (one module per concept):
+
+- ``offline``       astropy's IERS settings for working without network, and the dates supported
+- ``sites``         observing sites (TOML presets in ``configs/sites/`` and user files)
+- ``observability`` Sun, Moon and target altitudes, air mass, twilight and Moon events (pure numpy
+                    after a few astropy calls for time scales, sidereal time, frames, Sun and Moon)
+- ``schedule``      the night plan: which target to observe when, and why the others are left out
+- ``season``        hours each target is observable in dark time per month of a semester
+- ``commands``      the ``night`` and ``season`` command-line functions (I/O edge)
+
+Importing this package configures astropy to use only its bundled IERS tables
+(SCIENCE.md §21): nothing here touches the network.  All times and hours are
+planning estimates; the observatory's own tools and rules prevail.
+"""
+
+from .offline import configure_offline
+
+configure_offline()
