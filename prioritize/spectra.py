@@ -497,6 +497,13 @@ class DiagnosticLine:
 
 _TC = "refractory abundance for the condensation-temperature slope"
 _TC_SOURCE = "SCIENCE.md §10; Melendez et al. 2009 ApJ 704, L66; Spina et al. 2021 Nat. Astron. 5, 1163"
+# Refractory lines near Li 6708 (air wavelengths, A): key, wavelength, species.
+_REFRACTORY_LINES = (
+    ("fe6703", 6703.57, "Fe I"), ("fe6705", 6705.10, "Fe I"), ("fe6710", 6710.32, "Fe I"),
+    ("fe6713", 6713.74, "Fe I"), ("ca6717", 6717.68, "Ca I"), ("al6696", 6696.02, "Al I"),
+    ("al6698", 6698.67, "Al I"), ("si6721", 6721.848, "Si I"), ("ni6643", 6643.63, "Ni I"),
+    ("ni6767", 6767.77, "Ni I"),
+)
 
 DIAGNOSTIC_LINES: tuple[DiagnosticLine, ...] = (
     DiagnosticLine("li6708", "Li I 6707.8", 6707.8, "Li I",
@@ -527,26 +534,10 @@ DIAGNOSTIC_LINES: tuple[DiagnosticLine, ...] = (
                    "beryllium burns at 3.5 MK: Be with Li separates accretion from production",
                    "SCIENCE.md §10; the blue flux of F-K stars is far below that at 6708 A, hence "
                    "the high S/N asked at 6708 A", min_snr=300.0, min_resolving_power=30000.0),
-    DiagnosticLine("fe6703", "Fe I 6703.6", 6703.57, "Fe I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("fe6705", "Fe I 6705.1", 6705.10, "Fe I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("fe6710", "Fe I 6710.3", 6710.32, "Fe I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("fe6713", "Fe I 6713.7", 6713.74, "Fe I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("ca6717", "Ca I 6717.7", 6717.68, "Ca I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("al6696", "Al I 6696.0", 6696.02, "Al I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("al6698", "Al I 6698.7", 6698.67, "Al I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("si6721", "Si I 6721.8", 6721.85, "Si I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("ni6643", "Ni I 6643.6", 6643.63, "Ni I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
-    DiagnosticLine("ni6767", "Ni I 6767.8", 6767.77, "Ni I", _TC, _TC_SOURCE, min_snr=150.0,
-                   min_resolving_power=40000.0),
+) + tuple(
+    DiagnosticLine(key, f"{species} {wavelength:.1f}", wavelength, species, _TC, _TC_SOURCE,
+                   min_snr=150.0, min_resolving_power=40000.0)
+    for key, wavelength, species in _REFRACTORY_LINES
 )
 """Lines and features worth taking with Li 6708: wavelength (A, air), species, what it
 tells about engulfment, and the source.  Reach thresholds are common practice [M]."""
