@@ -9,9 +9,20 @@ Units are in the name wherever the value is a bare float (``teff_k``, ``parallax
 Every measured quantity may carry a ``<name>_err`` column: a 1-sigma uncertainty in
 the same unit.  Magnitudes are apparent, in the Vega system of their band.
 
+The allowed ranges are bounds of the possible (a Teff below 2000 K, a mass of zero),
+used to catch slips in the input; they are not the range the stellar models cover,
+which the placement stage checks.
+
 To add an output column, add one line to :data:`OUTPUT_COLUMNS`; to add an input
 column, add one :class:`ColumnSpec` to ``_INPUT_SPECS`` (its ``_err`` twin is made
 by :func:`_with_error`).
+
+References
+----------
+Gaia Collaboration, Vallenari A. et al. 2023, A&A 674, A1 (Gaia DR3; the ``gaia_source``
+column names recognised here).
+Ochsenbein F., Bauer P., Marcout J. 2000, A&AS 143, 23 (VizieR; its ``e_`` prefix for
+errors and ``l_`` prefix for limit flags).
 """
 
 from __future__ import annotations
@@ -107,7 +118,7 @@ _INPUT_SPECS: tuple[ColumnSpec, ...] = (
                aliases=("source_id", "id", "name", "star", "starid", "star_name", "object", "objid")),
     ColumnSpec("ra_deg", FLOAT, "deg", "right ascension (ICRS)", lo=0.0, hi=360.0,
                aliases=("ra", "radeg", "ra_icrs", "raj2000", "_raj2000", "ra_j2000"),
-               hint=(-180.0, 0.0, "looks like RA in -180..180 deg; give RA in 0..360 deg")),
+               hint=(-180.0, 0.0, "looks like RA in -180..180 deg (give RA in 0..360 deg)")),
     ColumnSpec("dec_deg", FLOAT, "deg", "declination (ICRS)", lo=-90.0, hi=90.0,
                aliases=("dec", "dedeg", "decdeg", "de_icrs", "dec_icrs", "dej2000", "_dej2000",
                         "dec_j2000", "decl")),
@@ -166,7 +177,7 @@ _INPUT_SPECS: tuple[ColumnSpec, ...] = (
                aliases=("cluster_e(b-v)", "ebv_cluster")),
     ColumnSpec("member_prob", FLOAT, "", "cluster membership probability (0 to 1)", lo=0.0, hi=1.0,
                aliases=("pmem", "p_mem", "proba", "memb_prob", "membership_prob", "membership_probability"),
-               hint=(1.0, 100.0, "looks like a percentage; give a probability between 0 and 1")),
+               hint=(1.0, 100.0, "looks like a percentage (give a probability between 0 and 1)")),
 )
 
 INPUT_COLUMNS: dict[str, ColumnSpec] = {spec.name: spec for spec in _INPUT_SPECS}

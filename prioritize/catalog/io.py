@@ -13,6 +13,14 @@ Writers choose the format from the extension, write to a temporary file in the s
 folder and rename it into place, so a reader never sees a half-written table.
 Provenance (tool version, configuration, creation time, caution) goes into the file's
 own metadata, or a ``<file>.meta.json`` sidecar for CSV.
+
+References
+----------
+Pence W. D. et al. 2010, A&A 524, A42 (FITS standard 3.0: binary tables, CONTINUE cards).
+Ochsenbein F. et al. 2019, VOTable Format Definition 1.4, IVOA Recommendation.
+Aldcroft T. et al. 2015, Astropy Proposal for Enhancement 6: Enhanced Character
+Separated Values (ECSV).
+Apache Parquet format specification (file and schema key-value metadata).
 """
 
 from __future__ import annotations

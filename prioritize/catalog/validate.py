@@ -1,0 +1,434 @@
+"""Per-row validation of a canonical catalog, and what each star can be computed from.
+
+:func:`validate_catalog` never drops a row: it appends ``status`` (a code from
+:mod:`prioritize.catalog.status`) and ``note`` (every problem found, in words,
+``'; '``-separated, in column order; the first problem's code is the status).
+:func:`computable_from` names the placement route each row allows, in the engine's
+order of preference; :func:`check_report` is the text ``prioritize check`` prints.
+All checks are vectorised over the table.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from prioritize.catalog import status
+from prioritize.catalog.columns import (INPUT_COLUMNS, NUMERIC_INPUT_COLUMNS, ColumnSpec,
+                                        row_number_ids)
+from prioritize.errors import CatalogError, ConfigError
+from prioritize.stars.photometry import MAX_PARALLAX_REL_ERR
+
+ROUTE_MASS_STAGE = "mass+stage"
+ROUTE_CLUSTER = "cluster isochrone"
+ROUTE_TEFF_L = "Teff+L"
+ROUTE_TEFF_LOGG = "Teff+logg"
+ROUTE_NONE = "nothing"
+ROUTES = (ROUTE_MASS_STAGE, ROUTE_CLUSTER, ROUTE_TEFF_L, ROUTE_TEFF_LOGG, ROUTE_NONE)
+"""Placement routes in the engine's order of preference."""
+
+CLUSTER_CONTEXT_KEYS = ("age_gyr", "feh", "distance_pc", "ebv")
+MAX_LISTED_ROWS = 1000          # check_report lists at most this many rows per section
+NEEDS_TEXT = "needs mass+stage, or a colour/Teff with parallax/logL/logg"
+
+# Text that means "no value" in a numeric column (compared lower-case, stripped).
+_MISSING_TEXT = frozenset({"", "nan", "na", "n/a", "null", "none", "--", "-", "?", "..."})
+_TRUE_TEXT = frozenset({"true", "t", "yes", "y", "1", "1.0", "<", "upper", "limit", "ul", "upper limit"})
+_FALSE_TEXT = frozenset({"false", "f", "no", "n", "0", "0.0", "=", "detection", "det"})
+
+
+def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
+                     cluster_context: dict | None = None) -> pd.DataFrame:
+    """Check every row of a canonical catalog; return a copy with ``status`` and ``note``.
+
+    Rules, per canonical column present:
+
+    - text in a numeric column -> NaN, status ``invalid_value``, note naming column and text
+      (blank, ``nan``, ``N/A``, ``--`` and similar mean missing, not invalid);
+    - a value outside the column's allowed range
+      (:attr:`~prioritize.catalog.columns.ColumnSpec.range_text`) -> ``invalid_value``
+      with column, value and range; values that look like a known slip (log Teff given
+      as Teff, a percentage as a probability, RA in -180..180) say so instead;
+    - a negative parallax is legal data when ``parallax_mas_err`` > 0 is given (note
+      only), otherwise ``invalid_value``;
+    - ``stage`` text is normalised to :data:`prioritize.catalog.status.STAGES` (through
+      ``STAGE_ALIASES``); unknown text -> ``invalid_value`` naming the allowed names;
+    - ``a_li_is_limit`` becomes a boolean (true/false, yes/no, 1/0, ``<`` for a limit;
+      missing -> False); other text -> ``invalid_value``;
+    - a repeated ``star_id`` -> ``duplicate_id`` for the later copies (the first is computed);
+    - a row that allows no placement route (:func:`computable_from`) -> ``missing_inputs``.
+
+    Parameters
+    ----------
+    catalog : pandas.DataFrame
+        Canonical column names (see :func:`prioritize.catalog.io.read_catalog`); other
+        columns pass through untouched.  An existing ``status``/``note`` is replaced.
+    path : str, optional
+        The catalog file, named in errors.
+    cluster_context : dict, optional
+        Cluster values from the configuration (keys ``age_gyr``, ``feh``, ``distance_pc``,
+        ``ebv``; NaN or None = not set) used where the catalog has no cluster columns.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Every input row in order; numeric canonical columns as float64, ``stage``
+        normalised, ``a_li_is_limit`` boolean, plus ``status`` and ``note``.
+
+    Raises
+    ------
+    CatalogError
+        The table has no ``star_id`` column.
+    ConfigError
+        ``cluster_context`` has an unknown key.
+
+    References
+    ----------
+    Luri X. et al. 2018, A&A 616, A9 (negative parallaxes are valid measurements that
+    carry information; they must not be discarded or flagged as errors).
+    Bailer-Jones C. A. L. 2015, PASP 127, 994 (inverting parallaxes).
+    """
+    if "star_id" not in catalog.columns:
+        raise CatalogError("has no star_id column; read it with read_catalog, which names "
+                           "unnamed stars by their row number", path=path, column="star_id")
+    context = _cluster_context(cluster_context)
+    out = catalog.drop(columns=[c for c in ("status", "note") if c in catalog.columns])
+    notes = _Notes(len(out))
+
+    missing_id = out["star_id"].isna().to_numpy()
+    if missing_id.any():
+        ids = out["star_id"].to_numpy(dtype=object, copy=True)
+        ids[missing_id] = row_number_ids(np.flatnonzero(missing_id))
+        out["star_id"] = pd.array(ids, dtype="str")
+    _check_duplicates(out["star_id"], notes)
+
+    numbers, not_numeric = {}, {}
+    for name in NUMERIC_INPUT_COLUMNS:
+        if name in out.columns:
+            numbers[name], not_numeric[name] = _to_float(out[name])
+            out[name] = numbers[name]
+    for name, spec in INPUT_COLUMNS.items():
+        if name in numbers:
+            notes.add(not_numeric[name], status.INVALID_VALUE,
+                      np.array([f"{name}: {str(v)!r} is not a number"
+                                for v in catalog[name].to_numpy()[not_numeric[name]]], dtype=object))
+            if name == "parallax_mas":
+                _check_parallax(numbers, notes)
+            else:
+                _check_range(spec, numbers[name], notes)
+        elif name == "stage" and name in out.columns:
+            out[name] = _check_stage(out[name], notes)
+        elif name == "a_li_is_limit" and name in out.columns:
+            out[name] = _check_limit_flag(out[name], notes)
+
+    have = _Available(out, context)
+    nothing = _routes(have) == ROUTE_NONE
+    notes.add(nothing, status.MISSING_INPUTS, _missing_text(have, nothing))
+    out["status"] = pd.array(notes.status, dtype="str")
+    out["note"] = pd.array(notes.note, dtype="str")
+    return out
+
+
+def computable_from(catalog: pd.DataFrame, cluster_context: dict | None = None) -> pd.Series:
+    """The placement route each row allows, in the engine's order of preference.
+
+    1. ``mass+stage``: ``mass_msun`` and a known ``stage``;
+    2. ``cluster isochrone``: a cluster age (``cluster_age_gyr`` or the configured
+       cluster), a magnitude (``g_mag`` or ``v_mag``) and a distance (``parallax_mas`` > 0,
+       ``distance_pc`` or the cluster distance);
+    3. ``Teff+L``: Teff given or derivable from a colour (``bp_rp``, ``bp_mag`` and
+       ``rp_mag``, or ``b_v``), and ``logl_lsun`` given or derivable from a magnitude and
+       a distance;  ``Teff+logg``: the same Teff and ``logg``;
+
+    A parallax counts as a distance when it is positive and, if its error is given,
+    error/parallax <= :data:`prioritize.stars.photometry.MAX_PARALLAX_REL_ERR` (the
+    photometry stage rejects less precise ones).
+    4. ``nothing``.
+
+    Values are not range-checked here (see :func:`validate_catalog`); a row can allow a
+    route and still be invalid.
+
+    Parameters
+    ----------
+    catalog : pandas.DataFrame
+        Canonical column names; absent columns count as missing.
+    cluster_context : dict, optional
+        Keys ``age_gyr``, ``feh``, ``distance_pc``, ``ebv`` (NaN or None = not set).
+
+    Returns
+    -------
+    pandas.Series
+        One of :data:`ROUTES` per row, same index as ``catalog``.
+
+    References
+    ----------
+    Bailer-Jones C. A. L. 2015, PASP 127, 994 (1/parallax is a biased distance when the
+    fractional parallax error exceeds about 20 per cent).
+    """
+    routes = _routes(_Available(catalog, _cluster_context(cluster_context)))
+    return pd.Series(routes, index=catalog.index, name="computable_from", dtype="str")
+
+
+def check_report(validated: pd.DataFrame, cluster_context: dict | None = None) -> str:
+    """The text ``prioritize check`` prints for a validated catalog.
+
+    Counts per status, every row with a problem (1-based row number, star_id, status,
+    note; above :data:`MAX_LISTED_ROWS` rows the rest are counted), rows that will be
+    computed but carry a note, and counts per placement route.
+
+    Parameters
+    ----------
+    validated : pandas.DataFrame
+        The output of :func:`validate_catalog`; a ``computable_from`` column, if present,
+        is used for the route counts instead of recomputing them.
+    cluster_context : dict, optional
+        As given to :func:`validate_catalog`.
+    """
+    codes = validated["status"].astype(object).to_numpy()
+    notes = validated["note"].astype(object).fillna("").to_numpy()
+    ids = validated["star_id"].astype(object).to_numpy()
+    counts = pd.Series(codes).value_counts()
+    order = [c for c in status.ALL if c in counts.index] + sorted(set(counts.index) - set(status.ALL))
+    lines = [f"{len(validated)} rows checked", "", "Rows per status:"]
+    width = max(len(c) for c in order) if order else 0
+    for code in order:
+        lines.append(f"  {code.ljust(width)}  {counts[code]:>9d}  {status.DESCRIPTIONS.get(code, '')}")
+
+    problem = np.flatnonzero(codes != status.OK)
+    remarked = np.flatnonzero((codes == status.OK) & (notes != ""))
+    for title, rows in (("Rows with problems", problem), ("Notes on rows that will be computed", remarked)):
+        if rows.size == 0:
+            continue
+        lines += ["", f"{title} ({rows.size}):"]
+        lines += [f"  row {i + 1}  {ids[i]}  [{codes[i]}] {notes[i]}" for i in rows[:MAX_LISTED_ROWS]]
+        if rows.size > MAX_LISTED_ROWS:
+            lines.append(f"  ... and {rows.size - MAX_LISTED_ROWS} more (the first "
+                         f"{MAX_LISTED_ROWS} are listed)")
+
+    routes = (validated["computable_from"] if "computable_from" in validated.columns
+              else computable_from(validated, cluster_context)).value_counts()
+    lines += ["", "Can be placed on tracks from:"]
+    lines += [f"  {route.ljust(max(map(len, ROUTES)))}  {int(routes.get(route, 0)):>9d}"
+              for route in ROUTES]
+    return "\n".join(lines)
+
+
+class _Notes:
+    """Per-row status and note being built: the first code sticks, notes accumulate."""
+
+    def __init__(self, n: int):
+        self.status = np.full(n, status.OK, dtype=object)
+        self.note = np.full(n, "", dtype=object)
+
+    def add(self, mask: np.ndarray, code: str | None, texts) -> None:
+        """Add ``texts`` (one per True in ``mask``, or one for all) to the masked rows;
+        set ``code`` where no problem was recorded yet (``None`` = note only)."""
+        rows = np.flatnonzero(mask)
+        if rows.size == 0:
+            return
+        if code is not None:
+            fresh = rows[self.status[rows] == status.OK]
+            self.status[fresh] = code
+        texts = np.asarray(texts, dtype=object) if not isinstance(texts, str) else texts
+        current = self.note[rows]
+        self.note[rows] = np.where(current == "", texts, current + "; " + texts)
+
+
+def _cluster_context(context: dict | None) -> dict:
+    context = dict(context or {})
+    unknown = set(context) - set(CLUSTER_CONTEXT_KEYS)
+    if unknown:
+        raise ConfigError(f"unknown cluster context key(s) {', '.join(sorted(unknown))}; "
+                          f"allowed: {', '.join(CLUSTER_CONTEXT_KEYS)}")
+    return {key: (math.nan if context.get(key) is None else float(context[key]))
+            for key in CLUSTER_CONTEXT_KEYS}
+
+
+def _to_float(column: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Values as float64, and the mask of entries that were text but not a number."""
+    if pd.api.types.is_numeric_dtype(column.dtype) and not pd.api.types.is_bool_dtype(column.dtype):
+        return column.to_numpy(dtype=np.float64, na_value=np.nan), np.zeros(len(column), bool)
+    values = pd.to_numeric(column, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    failed = np.isnan(values) & column.notna().to_numpy()
+    if failed.any():
+        text = column[failed].astype(str).str.strip().str.lower()
+        failed[np.flatnonzero(failed)] = ~text.isin(_MISSING_TEXT).to_numpy()
+    return values, failed
+
+
+def _check_range(spec: ColumnSpec, values: np.ndarray, notes: _Notes) -> None:
+    bad = spec.outside(values)
+    if not bad.any():
+        return
+    hinted = np.zeros_like(bad)
+    if spec.hint is not None:
+        lo, hi, text = spec.hint
+        hinted = bad & (values >= lo) & (values <= hi)
+        notes.add(hinted, status.INVALID_VALUE,
+                  np.array([f"{spec.name} = {v:g} {text}" for v in values[hinted]], dtype=object))
+    plain = bad & ~hinted
+    allowed = spec.range_text()
+    notes.add(plain, status.INVALID_VALUE,
+              np.array([f"{spec.name} = {v:g} is outside the allowed range {allowed}"
+                        for v in values[plain]], dtype=object))
+
+
+def _check_parallax(numbers: dict, notes: _Notes) -> None:
+    """Negative parallaxes are noisy measurements when an error is given; too large is impossible."""
+    parallax = numbers["parallax_mas"]
+    error = numbers.get("parallax_mas_err", np.full(parallax.shape, np.nan))
+    negative = parallax < 0
+    with np.errstate(invalid="ignore"):
+        has_error = np.isfinite(error) & (error > 0)
+    notes.add(negative & has_error, None,
+              np.array([f"parallax_mas = {p:g} is negative (legal for a noisy measurement with "
+                        f"parallax_mas_err = {e:g})" for p, e in
+                        zip(parallax[negative & has_error], error[negative & has_error])], dtype=object))
+    no_error = negative & ~has_error
+    notes.add(no_error, status.INVALID_VALUE,
+              np.array([f"parallax_mas = {p:g} is negative and has no parallax_mas_err (give its "
+                        "error or leave it empty)" for p in parallax[no_error]], dtype=object))
+    spec = INPUT_COLUMNS["parallax_mas"]
+    allowed = spec.range_text()
+    with np.errstate(invalid="ignore"):
+        too_large = (parallax > spec.hi) | np.isinf(parallax)
+    notes.add(too_large, status.INVALID_VALUE,
+              np.array([f"parallax_mas = {p:g} is outside the allowed range {allowed}"
+                        for p in parallax[too_large]], dtype=object))
+
+
+def _check_duplicates(ids: pd.Series, notes: _Notes) -> None:
+    repeated = ids.duplicated(keep="first").to_numpy()
+    if not repeated.any():
+        return
+    positions = pd.Series(np.arange(len(ids)))
+    first = positions.groupby(ids.to_numpy(), sort=False).transform("min").to_numpy()
+    notes.add(repeated, status.DUPLICATE_ID,
+              np.array([f"star_id {i!r} repeats row {f + 1} (only the first copy is computed)"
+                        for i, f in zip(ids.to_numpy()[repeated], first[repeated])], dtype=object))
+
+
+def normalise_stage(text) -> str | None:
+    """The canonical stage name for a stage text (``"RGB"`` -> ``"lower_giant_branch"``),
+    or None when it is not recognised; case, blanks, '-' and '_' are ignored."""
+    key = str(text).strip().lower()
+    for candidate in (key, key.replace("-", "_").replace(" ", "_"), key.replace("_", " ")):
+        if candidate in status.STAGES:
+            return candidate
+        if candidate in status.STAGE_ALIASES:
+            return status.STAGE_ALIASES[candidate]
+    return None
+
+
+def _check_stage(column: pd.Series, notes: _Notes) -> pd.Series:
+    codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    canonical = np.array([normalise_stage(u) for u in uniques] + [None], dtype=object)
+    mapped = canonical[codes]                      # code -1 (missing) -> the trailing None
+    unknown = (codes >= 0) & pd.isna(mapped)
+    notes.add(unknown, status.INVALID_VALUE,
+              np.array([f"stage {str(v)!r} is not a known stage (use one of "
+                        f"{', '.join(status.STAGES)} or a short form such as ms, sgb, rgb, rc)"
+                        for v in column.to_numpy()[unknown]], dtype=object))
+    result = np.where(unknown, column.astype(object).to_numpy(), mapped)
+    return pd.Series(pd.array(np.where(pd.isna(result), np.nan, result), dtype="str"),
+                     index=column.index)
+
+
+def _limit_flag(value) -> bool | None:
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    key = str(value).strip().lower()
+    if key in _TRUE_TEXT:
+        return True
+    if key in _FALSE_TEXT or key in _MISSING_TEXT:
+        return False
+    return None
+
+
+def _check_limit_flag(column: pd.Series, notes: _Notes) -> pd.Series:
+    if pd.api.types.is_bool_dtype(column.dtype):
+        return column.astype(bool)
+    codes, uniques = pd.factorize(column, use_na_sentinel=True)
+    parsed = np.array([_limit_flag(u) for u in uniques] + [False], dtype=object)
+    flags = parsed[codes]                          # code -1 (missing) -> the trailing False
+    unknown = np.array([p is None for p in parsed])[codes]
+    notes.add(unknown, status.INVALID_VALUE,
+              np.array([f"a_li_is_limit: {str(v)!r} is not understood (use true/false, yes/no, "
+                        "1/0, or '<' for an upper limit)" for v in column.to_numpy()[unknown]],
+                       dtype=object))
+    return pd.Series(np.where(unknown, False, flags).astype(bool), index=column.index)
+
+
+class _Available:
+    """Which inputs each row has, directly or derivably (boolean arrays)."""
+
+    def __init__(self, catalog: pd.DataFrame, context: dict):
+        n = len(catalog)
+
+        def number(name: str) -> np.ndarray:
+            if name not in catalog.columns:
+                return np.full(n, np.nan)
+            return pd.to_numeric(catalog[name], errors="coerce").to_numpy(dtype=np.float64,
+                                                                          na_value=np.nan)
+
+        def given(name: str) -> np.ndarray:
+            return np.isfinite(number(name))
+
+        def positive(name: str) -> np.ndarray:
+            with np.errstate(invalid="ignore"):
+                return number(name) > 0
+
+        self.mass = given("mass_msun")
+        if "stage" in catalog.columns:
+            codes, uniques = pd.factorize(catalog["stage"], use_na_sentinel=True)
+            known = np.array([normalise_stage(u) is not None for u in uniques] + [False])
+            self.stage = known[codes]
+        else:
+            self.stage = np.zeros(n, bool)
+        colour = given("bp_rp") | (given("bp_mag") & given("rp_mag")) | given("b_v")
+        self.teff = given("teff_k") | colour
+        self.magnitude = given("g_mag") | given("v_mag")
+        parallax, parallax_err = number("parallax_mas"), number("parallax_mas_err")
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.imprecise_parallax = (parallax > 0) & (parallax_err / parallax > MAX_PARALLAX_REL_ERR)
+            usable_parallax = (parallax > 0) & ~self.imprecise_parallax
+        self.distance = (usable_parallax | positive("distance_pc")
+                         | positive("cluster_distance_pc") | (context["distance_pc"] > 0))
+        self.luminosity = given("logl_lsun") | (self.magnitude & self.distance)
+        self.logg = given("logg")
+        self.cluster_age = given("cluster_age_gyr") | np.isfinite(context["age_gyr"])
+
+
+def _routes(have: _Available) -> np.ndarray:
+    choice = np.select([have.mass & have.stage, have.cluster_age & have.magnitude & have.distance,
+                        have.teff & have.luminosity, have.teff & have.logg], [0, 1, 2, 3], default=4)
+    return np.array(ROUTES, dtype=object)[choice]
+
+
+_MISSING_DETAILS = np.array([
+    "",
+    " (mass_msun given without a (known) stage)",
+    " (Teff or a colour given, but no luminosity or logg: add parallax_mas or distance_pc "
+    "with g_mag or v_mag, or logl_lsun, or logg)",
+    " (luminosity or logg given, but no Teff: add teff_k or a colour (bp_rp, bp_mag and "
+    "rp_mag, or b_v))",
+    f" (parallax error above {MAX_PARALLAX_REL_ERR:.0%} of the parallax, too imprecise for a "
+    "distance, and no Teff or colour)",
+    " (a magnitude without parallax or distance, and no Teff or colour)",
+    " (cluster age given, but no g_mag or v_mag)",
+], dtype=object)
+
+
+def _missing_text(have: _Available, rows: np.ndarray) -> np.ndarray:
+    """Why each row in the mask ``rows`` cannot be placed: what it has and what it lacks."""
+    detail = np.select(
+        [have.mass & ~have.stage,
+         have.teff & ~have.luminosity & ~have.logg,
+         ~have.teff & (have.luminosity | have.logg),
+         have.magnitude & ~have.distance & have.imprecise_parallax,
+         have.magnitude & ~have.distance,
+         have.cluster_age & ~have.magnitude],
+        [1, 2, 3, 4, 5, 6], default=0)[rows]
+    return f"missing inputs: {NEEDS_TEXT}" + _MISSING_DETAILS[detail]
