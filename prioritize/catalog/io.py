@@ -288,7 +288,6 @@ def parse_column_option(items: list[str] | tuple[str, ...] | None) -> dict[str, 
             if source in mapping and mapping[source] != target:
                 raise ConfigError(f"--columns maps {source!r} twice ({mapping[source]!r} and {target!r}); "
                                   "give it once")
-            check_column_map({source: target})
             mapping[source] = target
     return check_column_map(mapping)
 
@@ -504,7 +503,7 @@ def _as_text(series: pd.Series) -> pd.Series:
     if pd.api.types.is_integer_dtype(series.dtype):
         text = series.astype("Int64").astype(str).where(series.notna(), np.nan)
     elif pd.api.types.is_float_dtype(series.dtype):
-        whole = series.notna() & (series == series.round())
+        whole = series.notna() & (series == series.round()) & (series.abs() < 2.0**63)
         text = series.astype(object).where(series.notna(), np.nan)
         text[whole] = series[whole].astype(np.int64).astype(str)
         text[series.notna() & ~whole] = series[series.notna() & ~whole].astype(str)
@@ -522,8 +521,8 @@ def _decode(value):
 def _text_or_flags(series: pd.Series) -> pd.Series:
     """Bytes decoded and blank text -> NaN; a column holding only True/False (as text or
     booleans) with gaps becomes objects True/False/NaN."""
-    values = series.map(lambda v: v.decode("utf-8", errors="replace") if isinstance(v, bytes) else v,
-                        na_action="ignore")
+    values = series if isinstance(series.dtype, pd.StringDtype) else series.map(
+        lambda v: v.decode("utf-8", errors="replace") if isinstance(v, bytes) else v, na_action="ignore")
     present = values.notna()
     if present.any():
         kinds = values[present].map(type).unique()

@@ -57,7 +57,8 @@ def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
       ``STAGE_ALIASES``); unknown text -> ``invalid_value`` naming the allowed names;
     - ``a_li_is_limit`` becomes a boolean (true/false, yes/no, 1/0, ``<`` for a limit;
       missing -> False); other text -> ``invalid_value``;
-    - a repeated ``star_id`` -> ``duplicate_id`` for the later copies (the first is computed);
+    - a missing ``star_id`` becomes ``row<N>`` (1-based row); a repeated one ->
+      ``duplicate_id`` for the later copies (the first is computed);
     - a row that allows no placement route (:func:`computable_from`) -> ``missing_inputs``.
 
     Parameters
