@@ -91,6 +91,7 @@ R_STOP_FRACTION = 0.05              # ... or at r < 0.05 R (the envelope then re
 SURFACE_GAP_LN_P = 1.0              # radiative layer between photosphere and a zone mixed by overshoot
 ZONE_GAP_LN_P = 0.4                 # radiative gap between two zones mixed by overshoot (2 x 0.2 H_P)
 DEFAULT_CORE_RADIUS_RSUN = 0.03     # radius of a giant's degenerate helium core (approximate)
+HELIUM_BURNING_CORE_RADIUS_RSUN = 0.1  # ~ZAMS radius of a 0.5 M_sun helium star (Hurley et al. 2000, from memory)
 CORE_RADIUS_WINDOW_RSUN = (0.01, 0.1)  # core radii that change M_cz by only 1-2 %
 PROFILE_POINTS = 16
 PROFILE_DEPTH_FRACTIONS = np.linspace(0.0, 1.0, PROFILE_POINTS)
@@ -178,7 +179,7 @@ class EnvelopeResult:
 
 
 @dataclass(frozen=True)
-class _Microphysics:
+class EnvelopeMicrophysics:
     """EOS and opacity on one regular (log10 T, log10 P) grid; values[..., k] holds
     ln rho, nabla_ad, ln c_P, delta, ln kappa."""
 
@@ -190,7 +191,7 @@ class _Microphysics:
 
 
 @lru_cache(maxsize=16)
-def envelope_microphysics(x: float, z: float) -> _Microphysics:
+def envelope_microphysics(x: float, z: float) -> EnvelopeMicrophysics:
     """Tabulate the equation of state and the opacity for one composition.
 
     ~1 s per composition (the Saha solution on 3.4e5 grid points plus the opacity
@@ -203,7 +204,7 @@ def envelope_microphysics(x: float, z: float) -> _Microphysics:
 
     Returns
     -------
-    _Microphysics
+    EnvelopeMicrophysics
         Grid 10^3.4-10^8 K (0.01 dex) by 10-10^19.5 dyn cm^-2 (0.025 dex).
 
     References
@@ -222,10 +223,10 @@ def envelope_microphysics(x: float, z: float) -> _Microphysics:
     ln_kappa[good] = np.log(kappa(tt[good], np.exp(table.ln_rho[good])))
     values = np.stack([table.ln_rho, table.nabla_ad, np.log(np.where(good, table.c_p, np.nan)),
                        table.delta, ln_kappa], axis=-1)
-    return _Microphysics(log_t[0], log_p[0], _LOG_T_AXIS[2], _LOG_P_AXIS[2], values)
+    return EnvelopeMicrophysics(log_t[0], log_p[0], _LOG_T_AXIS[2], _LOG_P_AXIS[2], values)
 
 
-def _lookup(micro: _Microphysics, ln_t, ln_p):
+def _lookup(micro: EnvelopeMicrophysics, ln_t, ln_p):
     """Bilinear interpolation of the microphysics table; NaN outside it."""
     ln10 = np.log(10.0)
     nt, np_ = micro.values.shape[:2]
@@ -566,7 +567,7 @@ def integrate_envelopes(mass_msun, radius_rsun, logl, z, alpha, x=None, core_mas
     """Integrate the envelopes of many stars of one composition (batch form).
 
     Stars are integrated together as numpy arrays in batches of 256, which costs
-    ~1 ms per star instead of ~0.4 s for one star alone.  See
+    ~1 ms per star instead of ~0.1 s for one star alone.  See
     :func:`integrate_envelope` for the physics and the arguments; every argument
     except ``z`` and ``x`` broadcasts.  ``core_mass_msun`` NaN or 0 means no core.
 
@@ -636,8 +637,10 @@ def integrate_envelope(mass_msun, radius_rsun, logl, z, alpha, x=None, core_mass
     Notes
     -----
     Valid for 0.7-3 M_sun stars from the main sequence to the giant branch with
-    3,500 K <~ T_eff <~ 10,000 K.  Costs ~0.4 s alone; use
-    :func:`integrate_envelopes` for many stars.
+    3,500 K <~ T_eff <~ 10,000 K.  Costs ~0.1 s alone (numpy overhead per step);
+    :func:`integrate_envelopes` does many stars at ~1 ms each.  Core radii below
+    ~0.02 R_sun take the integration to densities where the ideal-gas equation of
+    state (no degeneracy) and the table end (``out_of_range``).
 
     References
     ----------
@@ -911,13 +914,16 @@ def rgb_bump_index(mass_msun, core_mass_msun, m_cz_msun, kstar) -> int:
 
 
 def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | None = None,
-                         eep_stride: int = 1, core_radius_rsun: float = DEFAULT_CORE_RADIUS_RSUN) -> dict:
+                         eep_stride: int = 1, core_radius_rsun: float = DEFAULT_CORE_RADIUS_RSUN,
+                         helium_burning_core_radius_rsun: float = HELIUM_BURNING_CORE_RADIUS_RSUN) -> dict:
     """Envelope columns for every point of one track, and the track's RGB-bump index.
 
     Rule per point (Hurley et al. 2000 phase code ``kstar``):
 
     - kstar 0-1 (main sequence): solar alpha, no core.
-    - kstar 2-6 with a core: solar alpha first, integrated down to the core.
+    - kstar 2-6 with a core: solar alpha first, integrated down to the core
+      (radius ``core_radius_rsun`` up to the giant-branch tip,
+      ``helium_burning_core_radius_rsun`` from core helium burning on).
       Kept (code 0) if the envelope meets the core within the radii
       :data:`CORE_RADIUS_WINDOW_RSUN` (0.01-0.1 R_sun, where M_cz changes by only
       1-2 %) and its convective base lies above the core.  Otherwise (on the
@@ -947,7 +953,11 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
         Compute every k-th point (plus the first and last point of each phase)
         and interpolate the rest along the track (code 4).
     core_radius_rsun : float, optional
-        Core radius for the inner boundary, R_sun.
+        Core radius for the inner boundary up to the giant-branch tip (kstar <= 3),
+        R_sun: a degenerate helium core.
+    helium_burning_core_radius_rsun : float, optional
+        Core radius from core helium burning on (kstar >= 4), R_sun: a
+        non-degenerate helium-burning core, about the size of a helium star.
 
     Returns
     -------
@@ -990,6 +1000,7 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     chosen = usable & ((np.arange(n) % eep_stride == 0) | np.isin(np.arange(n), np.concatenate(
         [[0, n - 1], phase_edges, phase_edges + 1])))
     with_core = chosen & (kstar >= 2) & np.isfinite(core) & (core > 0) & (core < mass)
+    core_radius = np.where(kstar >= 4, helium_burning_core_radius_rsun, core_radius_rsun)
 
     def store(indices, results, accept):
         for i, result in zip(indices, results):
@@ -1013,12 +1024,12 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     cored = np.flatnonzero(with_core)
     if cored.size:
         first = integrate_envelopes(mass[cored], radius[cored], logl[cored], z, alpha_solar, x=x,
-                                    core_mass_msun=core[cored], core_radius_rsun=core_radius_rsun)
+                                    core_mass_msun=core[cored], core_radius_rsun=core_radius[cored])
         store(cored, first, lambda r: TRACK_QUALITY_OK if r.quality == QUALITY_OK else None)
         retry = cored[quality[cored] == TRACK_QUALITY_INTERPOLATED]
         if retry.size:
             solved = solve_alphas_to_core(mass[retry], radius[retry], logl[retry], z, core[retry],
-                                          core_radius_rsun, x=x)
+                                          core_radius[retry], x=x)
             store(retry, solved,
                   lambda r: TRACK_QUALITY_ALPHA_SOLVED if r.quality == QUALITY_ALPHA_SOLVED else None)
     _fill_along_track(columns, profiles, quality, (TRACK_QUALITY_INTERPOLATED, TRACK_QUALITY_STRIDE))
