@@ -78,10 +78,7 @@ def _read_targets(path: Path, priority_column: Optional[str]):
     if missing:
         raise CatalogError(f"missing column(s) {', '.join(missing)}; the table needs star_id, ra_deg, "
                            "dec_deg (degrees) and a priority column (--priority-column)", path=str(path))
-    numbers = {}
-    for column in needed[1:]:
-        values = np.asarray(table[column].map(_as_float), dtype=float)
-        numbers[column] = values
+    numbers = {column: _numeric(table, column) for column in needed[1:]}
     skip = np.full(len(table), "", dtype=object)
     if "status" in table.columns:
         status = table["status"].astype(str).str.strip().str.lower()
@@ -89,18 +86,22 @@ def _read_targets(path: Path, priority_column: Optional[str]):
     return table, numbers, skip
 
 
-def _as_float(value) -> float:
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        return float("nan")
+def _numeric(table, column: str) -> np.ndarray:
+    """A column as floats; text that is not a number becomes NaN (reported per row downstream)."""
+    import pandas as pd
+
+    return pd.to_numeric(table[column], errors="coerce").to_numpy(dtype=float)
 
 
 def _atomic_write(path: Path, write) -> None:
+    """Call ``write(temporary_path)`` and rename the result onto ``path`` (never half-written)."""
     from ..catalog.io import _atomic_target
 
-    with _atomic_target(path) as temporary:
-        write(temporary)
+    try:
+        with _atomic_target(path) as temporary:
+            write(temporary)
+    except OSError as exc:
+        raise CatalogError(f"cannot be written: {exc}", path=str(path)) from exc
 
 
 def _companion(output: Path, suffix: str) -> Path:
@@ -176,7 +177,7 @@ def night_command(
         night = _parse_date(date, "--date")
         table, numbers, skip = _read_targets(ranked, priority_column)
         if "exposure_s" in table.columns:
-            exposure_s = np.asarray(table["exposure_s"].map(_as_float), dtype=float)
+            exposure_s = _numeric(table, "exposure_s")
             exposure_s = np.where(np.isnan(exposure_s), exposure, exposure_s)
         else:
             exposure_s = np.full(len(table), float(exposure))
@@ -199,7 +200,8 @@ def night_command(
             write_table(result, output, meta)
             _atomic_write(_companion(output, ".txt"),
                           lambda p: p.write_text(text + "\n", encoding="utf-8"))
-            figure = _night_figure(result, plan, the_site, numbers, keep, airmass_max, SCHEDULED)
+            figure = _night_figure(plan, the_site, numbers["ra_deg"][keep], numbers["dec_deg"][keep],
+                                   airmass_max)
             _atomic_write(_companion(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
             typer.echo(f"wrote {output}, {_companion(output, '.txt').name}, "
                        f"{_companion(output, '.png').name}")
@@ -286,7 +288,8 @@ def _night_text(result, plan, site, airmass_max, moon_min_sep, overhead, schedul
     return "\n".join(lines)
 
 
-def _night_figure(result, plan, site, numbers, keep, airmass_max, scheduled):
+def _night_figure(plan, site, ra_deg, dec_deg, airmass_max):
+    """Altitude against local time of the planned targets, their slots drawn thick."""
     from matplotlib import colormaps
     from matplotlib.dates import DateFormatter
     from matplotlib.figure import Figure
@@ -307,29 +310,26 @@ def _night_figure(result, plan, site, numbers, keep, airmass_max, scheduled):
     ax.axhline(float(altitude_for_airmass(airmass_max)), color="0.4", ls=":",
                label=f"air mass {airmass_max:g}")
     ax.plot(times, track.moon_altitude_deg, color="goldenrod", ls="--", label="Moon")
-    planned = plan.order > 0
-    if planned.any():
-        idx = np.flatnonzero(planned)
-        directions = apparent_directions(numbers["ra_deg"][keep][idx], numbers["dec_deg"][keep][idx],
-                                         0.5 * (grid[0] + grid[-1]))
-        altitudes = altitude_deg(directions, track.zenith)
-        colours = colormaps["viridis"]
-        for j, i in enumerate(idx[np.argsort(plan.order[idx])]):
-            row = np.flatnonzero(idx == i)[0]
-            colour = colours(j / max(1, planned.sum() - 1))
-            ax.plot(times, altitudes[row], color=colour, lw=0.7, alpha=0.5)
-            inside = (grid >= plan.start_mjd[i]) & (grid <= plan.end_mjd[i])
-            slot_times = [plan.start_mjd[i], *grid[inside], plan.end_mjd[i]]
-            slot_alt = np.interp(slot_times, grid, altitudes[row])
-            ax.plot([mjd_to_datetime(t, zone) for t in slot_times], slot_alt, color=colour, lw=3)
-            ax.annotate(str(plan.order[i]), (mjd_to_datetime(plan.start_mjd[i], zone), slot_alt[0]),
-                        fontsize=7, xytext=(0, 4), textcoords="offset points")
+    planned = np.flatnonzero(plan.order > 0)
+    planned = planned[np.argsort(plan.order[planned])]
+    directions = apparent_directions(ra_deg[planned], dec_deg[planned], 0.5 * (grid[0] + grid[-1]))
+    altitudes = altitude_deg(directions, track.zenith)
+    colours = colormaps["viridis"]
+    for row, i in enumerate(planned):
+        colour = colours(row / max(1, planned.size - 1))
+        ax.plot(times, altitudes[row], color=colour, lw=0.7, alpha=0.5)
+        inside = (grid >= plan.start_mjd[i]) & (grid <= plan.end_mjd[i])
+        slot_times = [plan.start_mjd[i], *grid[inside], plan.end_mjd[i]]
+        slot_alt = np.interp(slot_times, grid, altitudes[row])
+        ax.plot([mjd_to_datetime(t, zone) for t in slot_times], slot_alt, color=colour, lw=3)
+        ax.annotate(str(plan.order[i]), (mjd_to_datetime(plan.start_mjd[i], zone), slot_alt[0]),
+                    fontsize=7, xytext=(0, 4), textcoords="offset points")
     ax.set_ylim(0, 90)
     ax.set_xlim(times[0], times[-1])
     ax.set_ylabel("altitude (deg)")
     ax.set_xlabel(f"local time ({site.timezone})")
     ax.xaxis.set_major_formatter(DateFormatter("%H:%M", tz=zone))
-    ax.set_title(f"{site.name}, night of {ev.date.isoformat()}: {int(planned.sum())} targets planned "
+    ax.set_title(f"{site.name}, night of {ev.date.isoformat()}: {planned.size} targets planned "
                  "(thick: observing slot; planning estimate)", fontsize=10)
     ax.legend(loc="upper right", fontsize=8)
     fig.tight_layout()
@@ -423,8 +423,7 @@ def season_command(
                                        dark_hours={m: float(h) for m, h in zip(season.months,
                                                                                season.dark_hours)})
             write_table(result, output, meta)
-            priority = (np.asarray(table[priority_column].map(_as_float), dtype=float)
-                        if priority_column in table.columns else None)
+            priority = _numeric(table, priority_column) if priority_column in table.columns else None
             figure = _season_figure(result, season, the_site, first, last, airmass_max, priority)
             _atomic_write(_companion(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
             typer.echo(f"wrote {output}, {_companion(output, '.png').name}")
