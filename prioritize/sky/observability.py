@@ -120,7 +120,7 @@ def altitude_deg(directions, zenith) -> np.ndarray:
 
     References
     ----------
-    Spherical astronomy, e.g. Green 1985, *Spherical Astronomy*, eq. for the
+    Green, R. M. 1985, *Spherical Astronomy* (from memory), the altitude formula
     altitude: sin h = sin φ sin δ + cos φ cos δ cos H (here in vector form).
     """
     sin_h = np.asarray(directions, dtype=float) @ np.asarray(zenith, dtype=float).T
