@@ -120,8 +120,8 @@ def altitude_deg(directions, zenith) -> np.ndarray:
 
     References
     ----------
-    Green, R. M. 1985, *Spherical Astronomy* (from memory), the altitude formula
-    altitude: sin h = sin φ sin δ + cos φ cos δ cos H (here in vector form).
+    Green, R. M. 1985, *Spherical Astronomy* (from memory): sin h = sin φ sin δ
+    + cos φ cos δ cos H, written here in vector form.
     """
     sin_h = np.asarray(directions, dtype=float) @ np.asarray(zenith, dtype=float).T
     return np.degrees(np.arcsin(np.clip(sin_h, -1.0, 1.0)))
