@@ -54,7 +54,7 @@ import numpy as np
 import pandas as pd
 import typer
 
-from ..constants import G_CGS, M_SUN_G, R_SUN_CM, TEFF_SUN_K, Z_SUN_TRACKS
+from ..constants import LOGG_SUN, TEFF_SUN_K, Z_SUN_TRACKS
 from ..errors import PrioritizeError
 from ..stars.tracks import (DATA_COLUMNS, MISSING_PHASE_CODE, N_EEPS, PHASE_EEPS,
                             PROVENANCE_METADATA_KEY, TRACK_COLUMNS)
@@ -95,12 +95,11 @@ PHASE_SPACING = {
 CHEB_DESCENT_EEPS = 10
 MS_PATH_AGE_WEIGHT = 0.5
 MS_PATH_TEFF_WEIGHT = 1.0
-LOGG_SUN_EXACT = np.log10(G_CGS * M_SUN_G / R_SUN_CM ** 2)
 FLOAT32_SIGNIFICANT_BITS = 14   # stored precision 2^-14 = 6.1e-5 (relative), far below the fits' accuracy
 AGE_SIGNIFICANT_BITS = 32       # 2.3e-10 relative
 _FLOAT32_COLUMNS = tuple(c for c in DATA_COLUMNS if c not in ("age_myr", "kstar"))
-_BCM_COLUMNS = ["tphys", "kstar_1", "mass_1", "lum_1", "rad_1", "massc_he_layer_1",
-                "massc_co_layer_1", "menv_1", "renv_1"]
+_BCM_COLUMNS = ["tphys", "kstar_1", "mass_1", "lum_1", "rad_1", "teff_1", "massc_he_layer_1",
+                "massc_co_layer_1", "menv_1", "renv_1"]     # teff_1 only for checks
 _ARITHMETIC = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul,
                ast.Div: operator.truediv}
 
@@ -199,6 +198,11 @@ def evolve_single_stars(masses, z, bse_options=None, tphysf_myr=TPHYSF_MYR):
     return bcm.reset_index(drop=True)
 
 
+def _log_teff(logl, logr):
+    """log Teff from L = 4 pi R^2 sigma Teff^4 in solar units (Teff_sun = 5772 K, IAU 2015)."""
+    return np.log10(TEFF_SUN_K) + 0.25 * (logl - 2.0 * logr)
+
+
 def _strictly_increasing(coordinate):
     """Mask keeping the rows where ``coordinate`` exceeds every earlier row."""
     running = np.maximum.accumulate(coordinate)
@@ -237,8 +241,8 @@ def _phase_rows(kstar, codes, label):
 def _phase_coordinate(name, phase):
     """Coordinate along a phase in which its EEPs are spaced (see PHASE_SPACING)."""
     if name == "main_sequence":
-        logteff = np.log10(TEFF_SUN_K) + 0.25 * (phase["logl"] - 2.0 * phase["logr"])
-        return _main_sequence_path(phase["logl"], logteff, phase["age_myr"])
+        return _main_sequence_path(phase["logl"], _log_teff(phase["logl"], phase["logr"]),
+                                   phase["age_myr"])
     if name == "giant_branch":
         return phase["logl"]
     return phase["age_myr"]
@@ -297,7 +301,7 @@ def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass
     log L on the giant branch (to the helium-ignition tip).  Each phase ends where
     the next one starts; every column is linear in x between the dense points.  Then
     log Teff = log(5772 K) + (log L - 2 log R)/4 and
-    log g = log(G M_sun/R_sun^2) + log M - 2 log R (IAU 2015 nominal solar values).
+    log g = 4.438 + log M - 2 log R (IAU 2015 nominal solar values).
 
     Parameters
     ----------
@@ -377,8 +381,8 @@ def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass
         for column, values in phase.items():
             out[column][start:stop] = np.interp(positions, coordinate, values)
         out["kstar"][start:stop] = kstar[rows[0]]
-    out["logteff"] = np.log10(TEFF_SUN_K) + 0.25 * (out["logl"] - 2.0 * out["logr"])
-    out["logg"] = LOGG_SUN_EXACT + np.log10(out["mass_msun"]) - 2.0 * out["logr"]
+    out["logteff"] = _log_teff(out["logl"], out["logr"])
+    out["logg"] = LOGG_SUN + np.log10(out["mass_msun"]) - 2.0 * out["logr"]
     return out, missing_phase
 
 

@@ -206,8 +206,8 @@ class TrackGrid:
     masses: np.ndarray
     z: np.ndarray
     eeps: np.ndarray
-    data: dict
-    provenance: dict = field(default_factory=dict)
+    data: dict = field(repr=False)
+    provenance: dict = field(default_factory=dict, repr=False)
     _filled: dict = field(init=False, repr=False, compare=False)
     _valid: np.ndarray = field(init=False, repr=False, compare=False)
 
@@ -384,8 +384,8 @@ class TrackGrid:
         -------
         ndarray
             Fractional EEP (broadcast shape); NaN before the ZAMS (negative age), after
-            the last point of the track, or outside the grid.  An age within the
-            instant helium flash returns the start of core-He burning.
+            the last point of the track, or outside the grid.  Where several EEPs share
+            an age (phase joins, the instant helium flash) the last of them is returned.
         """
         mass, z, age = np.broadcast_arrays(np.asarray(mass, dtype=float),
                                            np.asarray(z, dtype=float),
