@@ -256,6 +256,10 @@ def test_shipped_tracks_are_complete_and_monotonic(grid):
     assert found == listed
     t_ms = age[:, :, PHASE_EEPS["subgiant"][0]]
     assert np.all(t_ms[no_he] > HUBBLE_TIME_MYR)
+    iz, im = (v[0] for v in np.nonzero(no_he))
+    tip = PHASE_EEPS["giant_branch"][1] - 1
+    at_tip = grid.interpolate(grid.masses[im], grid.z[iz], [tip, tip + 0.5], columns=["logl"])
+    assert np.isfinite(at_tip["logl"][0]) and np.isnan(at_tip["logl"][1])
 
 
 def test_provenance_matches_the_grid(grid):
@@ -323,6 +327,10 @@ def test_builder_command_line_rejects_bad_values(tmp_path):
                                                    "--masses", "1.0:abc"])
     assert result.exit_code != 0
     assert "start:stop:step" in result.output
+    result = CliRunner().invoke(build_tracks.app, ["--output", str(tmp_path / "x.parquet"),
+                                                   "--masses", "1.0", "--z", "0.05"])
+    assert result.exit_code == 1
+    assert "where the Hurley et al. (2000) fits hold" in result.output
     assert not (tmp_path / "x.parquet").exists()
 
 

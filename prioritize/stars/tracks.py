@@ -233,13 +233,15 @@ class TrackGrid:
             arr.flags.writeable = False
             data[name] = arr
         valid = data[PHASE_CODE_COLUMN] != MISSING_PHASE_CODE
+        if np.any(data["age_myr"][:, :, 0] != 0):
+            raise PrioritizeError("TrackGrid: age_myr must be 0 at EEP 0 (ages count from the ZAMS)")
         filled = {}
         for name, arr in data.items():
             values = arr.astype(float)
             if name == "age_myr":
                 with np.errstate(divide="ignore"):
                     values = np.log10(values)
-                values[:, :, 0] = 0.0          # ZAMS is age 0; restored after blending
+                values[:, :, 0] = 0.0          # log of the ZAMS age 0; restored after blending
             filled[name] = np.where(valid, values, 0.0).ravel()
         for name, value in (("masses", masses), ("z", z), ("eeps", eeps)):
             value.flags.writeable = False
@@ -325,7 +327,8 @@ class TrackGrid:
         fe = eep - e0
         lower = offsets + e0
         used = weights > 0
-        valid = np.all(~used | self._valid[lower], axis=0) & np.all(~used | self._valid[lower + 1], axis=0)
+        valid = (np.all(~used | self._valid[lower], axis=0)
+                 & (np.all(~used | self._valid[lower + 1], axis=0) | (fe == 0)))
         good = inside & valid
         out = {}
         for name in columns:
