@@ -612,11 +612,11 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, metadata: dict | N
     metadata = _plain_json(metadata or {})
     writer = _WRITERS[fmt]
     try:
-        with _atomic_target(path) as temporary:
+        with atomic_target(path) as temporary:
             writer(table, temporary, metadata, path)
         if fmt in ("csv", "tsv") and metadata:
             sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
-            with _atomic_target(sidecar) as temporary:
+            with atomic_target(sidecar) as temporary:
                 temporary.write_text(json.dumps(metadata, indent=2, sort_keys=True), encoding="utf-8")
     except CatalogError:
         raise
@@ -642,7 +642,7 @@ def _plain_json(value):
 
 
 @contextlib.contextmanager
-def _atomic_target(path: Path):
+def atomic_target(path: Path):
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success,
     delete it on failure."""
     handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")

@@ -10,11 +10,7 @@ Layout (one module per concept):
 - ``season``        hours each target is observable in dark time per month of a semester
 - ``commands``      the ``night`` and ``season`` command-line functions (I/O edge)
 
-Importing this package configures astropy to use only its bundled IERS tables
+Importing ``offline`` (which every module that computes times does) configures astropy to use only its bundled IERS tables
 (SCIENCE.md §21): nothing here touches the network.  All times and hours are
 planning estimates; the observatory's own tools and rules prevail.
 """
-
-from .offline import configure_offline
-
-configure_offline()

@@ -9,9 +9,7 @@ user mistake ends as one line on stderr and exit code 2.
 
 from __future__ import annotations
 
-import contextlib
 import datetime as dt
-import warnings
 from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
@@ -21,7 +19,8 @@ import typer
 
 from .. import CAUTION
 from ..catalog.status import OK
-from ..errors import CatalogError, PrioritizeError, PrioritizeWarning
+from ..console import one_line_errors
+from ..errors import CatalogError, PrioritizeError
 
 FIGURE_ROWS = 40          # targets shown in the season heat map (the first rows of the table)
 TEXT_LEFT_OUT_ROWS = 30   # left-out targets listed by name in the night's text file
@@ -42,24 +41,6 @@ class Twilight(str, Enum):
 
 
 # ----------------------------------------------------------------------------- shared edge helpers
-
-@contextlib.contextmanager
-def _one_line_errors():
-    """Package errors and warnings become single lines on stderr; errors exit with code 2."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", PrioritizeWarning)
-        try:
-            yield
-        except PrioritizeError as exc:
-            typer.echo(f"error: {exc}", err=True)
-            raise typer.Exit(code=2) from None
-        finally:
-            for item in caught:
-                if issubclass(item.category, PrioritizeWarning):
-                    typer.echo(f"warning: {item.message}", err=True)
-                else:
-                    warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
-
 
 def _parse_date(text: str, option: str) -> dt.date:
     try:
@@ -95,10 +76,10 @@ def _numeric(table, column: str) -> np.ndarray:
 
 def _atomic_write(path: Path, write) -> None:
     """Call ``write(temporary_path)`` and rename the result onto ``path`` (never half-written)."""
-    from ..catalog.io import _atomic_target
+    from ..catalog.io import atomic_target
 
     try:
-        with _atomic_target(path) as temporary:
+        with atomic_target(path) as temporary:
             write(temporary)
     except OSError as exc:
         raise CatalogError(f"cannot be written: {exc}", path=str(path)) from exc
@@ -169,7 +150,7 @@ def night_command(
     Times are planning estimates (about a minute); the observatory's own tools,
     rules and safety practice prevail.
     """
-    with _one_line_errors():
+    with one_line_errors():
         from .schedule import SCHEDULED, STATUS_NOT_OK, plan_night
         from .sites import load_site
 
@@ -379,7 +360,7 @@ def season_command(
     Hours are planning estimates: weather, telescope limits and other programmes
     are not modelled; the observatory's own tools and rules prevail.
     """
-    with _one_line_errors():
+    with one_line_errors():
         import pandas as pd
 
         from .season import season_hours, semester_dates

@@ -127,3 +127,6 @@ def quiet_time_warnings():
         for pattern in _ASTROPY_TIME_WARNINGS:
             warnings.filterwarnings("ignore", message=pattern)
         yield
+
+
+configure_offline()
