@@ -296,6 +296,12 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("logl_source", TEXT, "", "where logl_lsun came from (catalog, parallax + bolometric correction, ...)"),
     _out("feh_source", TEXT, "", "where feh came from (catalog, cluster, default)"),
     _out("baseline_source", TEXT, "", "which lithium baseline relation gave a_li_base"),
+    _out("z_enrich_err", FLOAT, "sigma", "spread of z_enrich over the placement samples"),
+    _out("teff_zams_k", FLOAT, "K", "Teff of the star's track at the zero-age main sequence"),
+    _out("a_li_main_sequence", FLOAT, "dex", "prior main-sequence A(Li) before dredge-up dilution"),
+    _out("dilution_dex", FLOAT, "dex", "first-dredge-up dilution of the star's own lithium (<= 0)"),
+    _out("m_planet_msun", FLOAT, "Msun", "planet mass mixed into the envelope"),
+    _out("chi2_best", FLOAT, "", "chi^2 of the best-matching track point (posterior and isochrone routes)"),
 ))
 """Ranked-output columns with units; printed by the command line and the README."""
 

@@ -1,0 +1,351 @@
+"""The physics chain as one function of a batch: a canonical table in, a table out.
+
+``run_batch`` takes validated rows (canonical columns plus ``status``/``note``) and
+returns one output row per input row, in the same order.  ``rank_table`` runs it
+over batches (bounded memory; a batch's random stream depends only on the seed and
+the batch number, so results do not depend on how batches are scheduled) and sorts
+the result into the ranked list.
+
+Chain per batch (DESIGN.md data flow):
+photometry -> placement on tracks (samples) -> envelope -> lithium baseline and
+enrichment per sample -> significance, P(z >= threshold) -> lifetime along the
+track of the median sample -> priority.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from . import score
+from .catalog import status as st
+from .config import Config
+from .lithium import baseline, lifetime
+from .lithium.enrichment import PlanetComposition, enriched_abundance, mjup_to_msun
+from .stars import evolution, placement
+from .stars.photometry import derive_stellar_parameters
+from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid, z_to_feh
+
+HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
+LIFETIME_CHUNK = 2000        # stars per chunk when following tracks into the future
+
+OUTPUT_COLUMNS = [
+    "star_id", "rank", "priority", "status", "note",
+    "mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "stage", "eep",
+    "teff_k", "logl_lsun", "radius_rsun", "feh", "m_cz_msun",
+    "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
+    "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight",
+    "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source",
+    "teff_zams_k", "a_li_main_sequence", "dilution_dex", "m_planet_msun", "chi2_best",
+]
+
+_CLUSTER_KEYS = {"cluster_age_gyr": "age_gyr", "cluster_feh": "feh",
+                 "cluster_distance_pc": "distance_pc", "cluster_ebv": "ebv"}
+
+
+def planet_composition(cfg: Config) -> PlanetComposition:
+    """The configured planet's composition."""
+    p = cfg.planet
+    return PlanetComposition(p.kind, p.hydrogen_fraction, p.a_li, p.li_mass_fraction)
+
+
+def _column(df: pd.DataFrame, name: str, dtype=float) -> np.ndarray:
+    if name in df.columns:
+        return df[name].to_numpy(dtype=dtype, na_value=np.nan) if dtype is float else \
+            df[name].to_numpy(dtype=object)
+    return np.full(len(df), np.nan) if dtype is float else np.full(len(df), None, dtype=object)
+
+
+def with_cluster_context(df: pd.DataFrame, cfg: Config) -> pd.DataFrame:
+    """Fill cluster columns from the config where the catalog lacks them, and let
+    members inherit the cluster's distance, reddening and [Fe/H] when they have none."""
+    df = df.copy()
+    for col, key in _CLUSTER_KEYS.items():
+        value = getattr(cfg.cluster, key)
+        if col not in df.columns:
+            df[col] = value
+        else:
+            df[col] = pd.to_numeric(df[col], errors="coerce").fillna(value)
+    member = np.isfinite(df["cluster_age_gyr"].to_numpy(float))
+    for own, col in (("distance_pc", "cluster_distance_pc"), ("ebv", "cluster_ebv"),
+                     ("feh", "cluster_feh")):
+        if own not in df.columns:
+            df[own] = np.nan
+        fill = member & df[own].isna().to_numpy()
+        if own == "distance_pc" and "parallax_mas" in df.columns:
+            fill &= df["parallax_mas"].isna().to_numpy()
+        df.loc[fill, own] = df.loc[fill, col]
+    return df
+
+
+def _routes(df: pd.DataFrame, params: pd.DataFrame) -> np.ndarray:
+    """Placement route per row, named as ``catalog.validate.computable_from`` names them:
+    mass+stage, cluster isochrone, Teff+L, Teff+logg, or '' (cannot place)."""
+    n = len(df)
+    mass = _column(df, "mass_msun")
+    stage = _column(df, "stage", object)
+    has_stage = np.array([isinstance(s, str) and s in st.STAGES for s in stage])
+    teff = params["teff_k"].to_numpy(float)
+    logl = params["logl_lsun"].to_numpy(float)
+    logg = _column(df, "logg")
+    age = _column(df, "cluster_age_gyr")
+    route = np.full(n, "", dtype=object)
+    route[np.isfinite(teff) & np.isfinite(logg)] = "Teff+logg"
+    route[np.isfinite(teff) & np.isfinite(logl)] = "Teff+L"
+    route[np.isfinite(age) & np.isfinite(teff) & np.isfinite(logl)] = "cluster isochrone"
+    route[np.isfinite(mass) & has_stage] = "mass+stage"
+    return route
+
+
+def _place(df, params, route, grid, cfg, rng):
+    """Run each route on its rows and merge the samples (rows stay in blocks of S)."""
+    n = len(df)
+    s = cfg.scoring.samples_per_star
+    parts = []
+    placed = np.zeros(n, bool)
+    note = np.full(n, "", dtype=object)
+    chi2 = np.full(n, np.nan)
+    teff, teff_err = params["teff_k"].to_numpy(float), params["teff_k_err"].to_numpy(float)
+    logl, logl_err = params["logl_lsun"].to_numpy(float), params["logl_lsun_err"].to_numpy(float)
+    feh, feh_err = params["feh"].to_numpy(float), params["feh_err"].to_numpy(float)
+    logg, logg_err = _column(df, "logg"), _column(df, "logg_err")
+    for name in ("mass+stage", "cluster isochrone", "posterior"):
+        rows = np.flatnonzero(np.isin(route, ("Teff+L", "Teff+logg")) if name == "posterior"
+                              else route == name)
+        if rows.size == 0:
+            continue
+        if name == "mass+stage":
+            p = placement.place_by_mass_stage(
+                grid, _column(df, "mass_msun")[rows], _column(df, "mass_msun_err")[rows],
+                _column(df, "stage", object)[rows], feh[rows], rng, s,
+                teff=_column(df, "teff_k")[rows], teff_err=_column(df, "teff_k_err")[rows],
+                logg=logg[rows], logg_err=logg_err[rows])
+        elif name == "cluster isochrone":
+            p = placement.place_on_isochrone(grid, teff[rows], teff_err[rows], logl[rows],
+                                             logl_err[rows], _column(df, "cluster_age_gyr")[rows],
+                                             feh[rows], rng, s)
+        else:
+            p = placement.place_by_posterior(grid, teff[rows], teff_err[rows], logl[rows],
+                                             logl_err[rows], logg[rows], logg_err[rows], feh[rows],
+                                             feh_err[rows], rng, s)
+        placed[rows] = p.placed
+        note[rows] = p.note
+        chi2[rows] = p.chi2_min
+        parts.append((rows[p.star], p.mass, p.z, p.eep))
+    if parts:
+        star, mass, z, eep = (np.concatenate(x) for x in zip(*parts))
+        order = np.argsort(star, kind="stable")
+        star, mass, z, eep = star[order], mass[order], z[order], eep[order]
+    else:
+        star = mass = z = eep = np.zeros(0)
+    return star.astype(int), mass, z, eep, placed, note, chi2
+
+
+def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
+    """Deepest convective envelope reached between the ZAMS and ``eep`` (M_sun):
+    dilution of the star's own lithium never reverses."""
+    past = eep[..., None] * np.linspace(0.0, 1.0, HISTORY_NODES)
+    past_cz = convective_envelope(grid, mass[..., None], z[..., None], past)["m_cz_msun"]
+    return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
+
+
+def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, cfg, composition):
+    """Baseline, enrichment and significance at track points (any shape).
+
+    ``m_mix`` is the envelope mass the planet is mixed into, ``m_cz_max`` the deepest
+    envelope so far (it sets the baseline's dilution)."""
+    zeros = np.zeros_like(age_myr)
+    zams = grid.interpolate(mass, z, zeros, columns=["logteff"])
+    tams = grid.interpolate(mass, z, zeros + PHASE_EEPS["main_sequence"][1], columns=["age_myr"])
+    teff_zams = 10 ** zams["logteff"]
+    m_pres = baseline.li_preserving_mass_interim(mass)
+    a_ms = baseline.main_sequence_lithium(teff_zams, np.minimum(age_myr, tams["age_myr"]) / 1e3)
+    dilution = baseline.dredge_up_dilution(m_cz_max, m_pres)
+    a_base = np.maximum(a_ms + dilution, baseline.A_LI_FLOOR)
+    sigma = np.full_like(a_base, np.hypot(cfg.baseline.prior_scatter_dex,
+                                          cfg.baseline.measurement_error_dex))
+    a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup), composition)
+    return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_base) / sigma,
+            "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution}
+
+
+def _lifetimes(grid, mass, z, eep, m_cz_max_now, cfg, composition):
+    """Lifetime of the signature following each (mass, z) track from ``eep``."""
+    n = mass.size
+    life = np.full(n, np.nan)
+    end = np.full(n, "", dtype=object)
+    nodes = np.asarray(grid.eeps, dtype=float)
+    gb0, gb1 = PHASE_EEPS["giant_branch"]
+    on_gb = (nodes >= gb0) & (nodes < gb1)
+    for start in range(0, n, LIFETIME_CHUNK):
+        sl = slice(start, start + LIFETIME_CHUNK)
+        m, zz, e = mass[sl, None], z[sl, None], eep[sl, None]
+        future = np.concatenate([e, np.where(nodes[None, :] > e, nodes[None, :], np.nan)], axis=1)
+        future = np.sort(future, axis=1)          # NaN to the end, current point first
+        ok = np.isfinite(future)
+        mm = np.broadcast_to(m, future.shape)
+        zb = np.broadcast_to(zz, future.shape)
+        eb = np.where(ok, future, 0.0)
+        cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl"])
+        m_cz = np.where(ok, convective_envelope(grid, mm, zb, eb)["m_cz_msun"], np.nan)
+        # the planet's lithium stays in the deepest envelope reached since engulfment
+        m_mix = np.fmax.accumulate(m_cz, axis=1)
+        m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
+        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, cfg, composition)
+        z_along = np.where(ok, li["z"], np.nan)
+        age = np.where(ok, cols["age_myr"], np.nan)
+        bump_logl = evolution.rgb_bump_logl(m[:, 0], z_to_feh(zz[:, 0]))
+        track = grid.interpolate(mm[:, :1] + 0 * nodes, zb[:, :1] + 0 * nodes,
+                                 np.broadcast_to(nodes, (mm.shape[0], nodes.size)),
+                                 columns=["logl", "age_myr"])
+        reached = on_gb[None, :] & (track["logl"] >= bump_logl[:, None])
+        has = reached.any(axis=1)
+        bump_age = np.where(has, track["age_myr"][np.arange(has.size), reached.argmax(axis=1)],
+                            np.nan)
+        life[sl], end[sl] = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature,
+                                                        bump_age)
+    return life, end
+
+
+def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
+              rng: np.random.Generator | None = None) -> pd.DataFrame:
+    """The whole chain for a batch of validated rows; one output row per input row."""
+    grid = grid or load_grid()
+    rng = rng or np.random.default_rng(cfg.scoring.seed)
+    n = len(df)
+    df = with_cluster_context(df.reset_index(drop=True), cfg)
+    status = df["status"].to_numpy(object).copy()
+    note = df["note"].fillna("").to_numpy(object).copy()
+    params = derive_stellar_parameters(df)
+    route = _routes(df, params)
+    active = status == st.OK
+    missing = active & (route == "")
+    status[missing] = st.MISSING_INPUTS
+    note[missing] = _append(note[missing], "cannot place on tracks: give mass+stage, or a "
+                            "Teff/colour with parallax, distance, log L or logg")
+    route = np.where(active & ~missing, route, "")
+
+    star, mass, z, eep, placed, pnote, chi2 = _place(df, params, route, grid, cfg, rng)
+    note = _append(note, pnote)
+    unplaced = (route != "") & ~placed
+    status[unplaced] = st.OUT_OF_MODEL_RANGE
+    out = pd.DataFrame({"star_id": df["star_id"].astype(str).to_numpy() if "star_id" in df
+                        else np.arange(1, n + 1).astype(str)})
+    composition = planet_composition(cfg)
+    s = cfg.scoring.samples_per_star
+    idx = np.unique(star)
+    res = {}
+    if star.size:
+        shape = (idx.size, s)
+        mass, z, eep = mass.reshape(shape), z.reshape(shape), eep.reshape(shape)
+        model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "age_myr"])
+        m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
+        m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
+        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, cfg, composition)
+        bump = evolution.rgb_bump_logl(mass, z_to_feh(z))
+        stage_i = evolution.stage_index(eep, model["logl"], bump, PHASE_EEPS)
+        zs = li["z"]
+        z_med = np.nanmedian(zs, axis=1)
+        rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
+        r = np.arange(idx.size)
+        life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep], cfg,
+                               composition)
+        res = {
+            "mass_msun": mass.mean(axis=1), "mass_err_msun": mass.std(axis=1),
+            "age_gyr": model["age_myr"].mean(axis=1) / 1e3,
+            "age_err_gyr": model["age_myr"].std(axis=1) / 1e3,
+            "eep": np.median(eep, axis=1),
+            "stage": evolution.stage_names(_mode(stage_i)),
+            "model_teff": np.median(10 ** model["logteff"], axis=1),
+            "model_logl": np.median(model["logl"], axis=1),
+            "model_radius": np.median(10 ** model["logr"], axis=1),
+            "model_feh": np.median(z_to_feh(z), axis=1),
+            "m_cz_msun": m_cz[r, rep],
+            "a_li_base": li["a_base"][r, rep], "a_li_scatter": li["sigma"][r, rep],
+            "a_li_enriched": li["a_new"][r, rep],
+            "z_enrich": z_med, "z_enrich_err": np.nanstd(zs, axis=1),
+            "p_detect": np.mean(zs >= cfg.thresholds.z_signature, axis=1),
+            "lifetime_myr": life, "lifetime_end": end,
+            "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
+            "dilution_dex": li["dilution"][r, rep],
+        }
+    for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
+                "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
+                "p_detect", "lifetime_myr", "teff_zams_k", "a_li_main_sequence", "dilution_dex"):
+        out[col] = _scatter(n, idx, res.get(col), float)
+    for col in ("stage", "lifetime_end"):
+        out[col] = _scatter(n, idx, res.get(col), object)
+    out["delta_a_li"] = out["a_li_enriched"] - out["a_li_base"]
+    out["m_planet_msun"] = np.where(out["z_enrich"].notna(), mjup_to_msun(cfg.planet.mass_mjup), np.nan)
+    out["chi2_best"] = chi2
+    _adopt(out, params, idx, res, n)
+    out["placement_method"] = np.where(route == "", "", route)
+    out["baseline_source"] = np.where(out["a_li_base"].notna(), "prior (model, not measured)", "")
+    weight = score.lifetime_weight(out["lifetime_myr"].to_numpy(), cfg.thresholds.min_lifetime_myr,
+                                   cfg.scoring.lifetime_scale_myr)
+    out["lifetime_weight"] = weight
+    out["priority"] = score.interim_priority(out["p_detect"].to_numpy(), weight)
+    out["status"] = status
+    out["note"] = note
+    out["rank"] = np.nan
+    extra = [c for c in df.columns if c not in out.columns and c not in ("status", "note")]
+    passthrough = df[extra].rename(columns={c: c for c in extra})
+    clash = [c for c in df.columns if c in out.columns and c not in ("star_id", "status", "note")]
+    for c in clash:
+        passthrough[f"input_{c}"] = df[c].to_numpy()
+    return pd.concat([out[OUTPUT_COLUMNS], passthrough.reset_index(drop=True)], axis=1)
+
+
+def _mode(stage_index):
+    """Most frequent stage index per row (ties to the earlier stage)."""
+    counts = np.stack([(stage_index == k).sum(axis=1) for k in range(-1, 6)], axis=1)
+    return counts.argmax(axis=1) - 1
+
+
+def _scatter(n, idx, values, dtype):
+    out = np.full(n, np.nan if dtype is float else "", dtype=dtype)
+    if values is not None:
+        out[idx] = values
+    return out
+
+
+def _append(a, b):
+    a = np.asarray(a, dtype=object)
+    b = np.asarray(b, dtype=object)
+    both = (a != "") & (b != "")
+    return np.where(both, a + "; " + b, np.where(a != "", a, b))
+
+
+def _adopt(out, params, idx, res, n):
+    """Teff, L, R and [Fe/H]: the star's own (catalog or photometry) where known,
+    else the placed model's, with the source recorded."""
+    for col, model_key, source_col in (("teff_k", "model_teff", "teff_source"),
+                                       ("logl_lsun", "model_logl", "logl_source"),
+                                       ("radius_rsun", "model_radius", "radius_source"),
+                                       ("feh", "model_feh", "feh_source")):
+        own = params[col].to_numpy(float)
+        model = _scatter(n, idx, res.get(model_key), float)
+        src = params[source_col].fillna("").to_numpy(object) if source_col in params else \
+            np.full(n, "", dtype=object)
+        use_model = ~np.isfinite(own) & np.isfinite(model)
+        out[col] = np.where(use_model, model, own)
+        if source_col != "radius_source":
+            out[source_col] = np.where(use_model, "track model", src)
+
+
+def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
+               progress=None) -> pd.DataFrame:
+    """Run the chain over batches and return the ranked table (every input row)."""
+    grid = grid or load_grid()
+    size = cfg.run.batch_size
+    parts = []
+    for b, start in enumerate(range(0, max(len(df), 1), size)):
+        chunk = df.iloc[start:start + size]
+        if len(chunk) == 0:
+            break
+        rng = np.random.default_rng([cfg.scoring.seed, b])
+        parts.append(run_batch(chunk, cfg, grid, rng))
+        if progress is not None:
+            progress(min(start + size, len(df)), len(df))
+    out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid)
+    return score.assign_ranks(out)
