@@ -1,0 +1,203 @@
+"""Command-line front end: one thin function per command.
+
+Heavy imports (pandas, astropy, scipy) happen inside the commands so that
+``prioritize --help`` starts quickly.  Package errors become one line on stderr and
+exit code 2; nothing a user can cause ends in a traceback.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from . import CAUTION, __version__
+from .console import friendly
+from .errors import PrioritizeError
+from .sky.commands import night_command, season_command
+
+app = typer.Typer(
+    add_completion=False, no_args_is_help=True, rich_markup_mode=None,
+    help="Rank planet-engulfment candidates for lithium follow-up.\n\n"
+         "Example: prioritize rank candidates.csv -o ranked.parquet\n\n" + CAUTION)
+
+SAMPLE_DIR = Path(__file__).resolve().parents[1] / "sample_catalogs"
+
+ConfigOpt = typer.Option(None, "--config", "-c", exists=True, dir_okay=False,
+                         help="TOML configuration (see configs/default.toml).")
+ColumnsOpt = typer.Option(None, "--columns",
+                          help="Map a column of yours to a canonical name: --columns Teff=teff_k "
+                               "(repeatable).")
+
+
+def _load(catalog: Path, config: Optional[Path], columns: Optional[list[str]], overrides=None):
+    from .catalog.io import parse_column_option, read_catalog
+    from .catalog.validate import validate_catalog
+    from .config import load_config, with_overrides
+
+    cfg = load_config(config)
+    if overrides:
+        cfg = with_overrides(cfg, overrides)
+    mapping = {**cfg.columns, **parse_column_option(columns or [])}
+    table, messages = read_catalog(catalog, mapping)
+    return cfg, validate_catalog(table, path=str(catalog), cluster_context=_cluster_context(cfg)), \
+        messages
+
+
+def _cluster_context(cfg) -> dict:
+    return {k: getattr(cfg.cluster, k) for k in ("age_gyr", "feh", "distance_pc", "ebv")}
+
+
+def _metadata(cfg, catalog) -> dict:
+    from datetime import datetime, timezone
+    return {"tool": f"prioritize {__version__}", "input": str(catalog),
+            "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+            "config": cfg.to_dict(), "caution": CAUTION}
+
+
+def _progress():
+    if not sys.stderr.isatty():
+        return None
+
+    def report(done, total):
+        typer.echo(f"\r  {done}/{total} stars", err=True, nl=done >= total)
+    return report
+
+
+@app.command()
+@friendly
+def rank(
+    catalog: Path = typer.Argument(..., exists=True, dir_okay=False, help="Candidate catalog "
+                                   "(CSV, Parquet, FITS, ECSV or VOTable)."),
+    output: Optional[Path] = typer.Option(None, "--output", "-o",
+                                          help="Ranked table; format from the extension "
+                                               "(default: <catalog>_ranked.csv here)."),
+    config: Optional[Path] = ConfigOpt,
+    columns: Optional[list[str]] = ColumnsOpt,
+    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80,
+                                                help="Engulfed planet mass in Jupiter masses."),
+    z_threshold: Optional[float] = typer.Option(None, "--z-threshold", min=0.5, max=20,
+                                                help="Significance that counts as a signature."),
+    seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed."),
+    top: Optional[int] = typer.Option(None, "--top", min=0, help="Rows shown in the terminal."),
+):
+    """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
+
+    Example: prioritize rank candidates.csv -o ranked.parquet --planet-mass 5
+    """
+    from .catalog.io import write_table
+    from .engine import rank_table
+    from .report.terminal import status_summary, top_table
+
+    cfg, table, messages = _load(catalog, config, columns, {
+        "planet.mass_mjup": planet_mass, "thresholds.z_signature": z_threshold,
+        "scoring.seed": seed, "run.top": top})
+    for m in messages:
+        typer.echo(f"  {m}", err=True)
+    ranked = rank_table(table, cfg, progress=_progress())
+    output = output or Path(f"{catalog.name.split('.')[0]}_ranked.csv")
+    write_table(ranked, output, _metadata(cfg, catalog))
+    typer.echo(top_table(ranked, cfg.run.top))
+    typer.echo("")
+    typer.echo(status_summary(ranked))
+    typer.echo(f"Ranked table written to {output}")
+
+
+@app.command()
+@friendly
+def explain(
+    catalog: Path = typer.Argument(..., exists=True, dir_okay=False),
+    star_id: str = typer.Argument(..., help="The star's id as in the catalog."),
+    config: Optional[Path] = ConfigOpt,
+    columns: Optional[list[str]] = ColumnsOpt,
+    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80),
+):
+    """Show one star's whole chain with intermediate values and sources.
+
+    Example: prioritize explain candidates.csv "Star 42"
+    """
+    import numpy as np
+
+    from .engine import run_batch
+    from .report.explain import explain_text
+
+    cfg, table, _ = _load(catalog, config, columns, {"planet.mass_mjup": planet_mass})
+    ids = table["star_id"].astype(str)
+    hit = np.flatnonzero(ids.to_numpy() == star_id)
+    if hit.size == 0:
+        near = [s for s in ids if star_id.lower() in s.lower()][:5]
+        raise PrioritizeError(f"star '{star_id}' is not in {catalog}"
+                              + (f"; did you mean: {', '.join(near)}" if near else ""))
+    one = table.iloc[hit[:1]]
+    row = run_batch(one, cfg).iloc[0]
+    typer.echo(explain_text(one.iloc[0], row, cfg))
+
+
+@app.command()
+@friendly
+def check(
+    catalog: Path = typer.Argument(..., exists=True, dir_okay=False),
+    config: Optional[Path] = ConfigOpt,
+    columns: Optional[list[str]] = ColumnsOpt,
+):
+    """Validate a catalog: every problem, and what each star can be computed from.
+
+    Example: prioritize check candidates.csv
+    """
+    from .catalog.validate import check_report, computable_from
+
+    cfg, table, messages = _load(catalog, config, columns)
+    for m in messages:
+        typer.echo(m)
+    context = _cluster_context(cfg)
+    table = table.assign(computable_from=computable_from(table, cluster_context=context))
+    typer.echo(check_report(table, cluster_context=context))
+
+
+@app.command()
+@friendly
+def demo(
+    output_dir: Path = typer.Option(Path("demo_output"), "--output-dir",
+                                    help="Where the demo writes its ranked lists."),
+):
+    """Run the main job on the bundled sample catalogs (an invented cluster and field)."""
+    from .catalog.io import write_table
+    from .config import load_config, with_overrides
+    from .engine import rank_table
+    from .report.terminal import status_summary, top_table
+    from .catalog.io import read_catalog
+    from .catalog.validate import validate_catalog
+
+    runs = [("Cluster (invented) — members of the sample cluster", "cluster_members.csv", {}),
+            ("Field sample (invented)", "field_stars.csv", {})]
+    output_dir.mkdir(parents=True, exist_ok=True)
+    for title, name, overrides in runs:
+        path = SAMPLE_DIR / name
+        if not path.exists():
+            raise PrioritizeError(f"sample catalog {path} is missing; run "
+                                  "`python sample_catalogs/make_samples.py` to regenerate it")
+        cfg = with_overrides(load_config(), overrides)
+        table, _ = read_catalog(path)
+        ranked = rank_table(validate_catalog(table, path=str(path), cluster_context=_cluster_context(cfg)),
+                            cfg, progress=_progress())
+        out = output_dir / f"{path.stem}_ranked.csv"
+        write_table(ranked, out, _metadata(cfg, path))
+        typer.echo(f"== {title}: {path.name}")
+        typer.echo(top_table(ranked, 10))
+        typer.echo(status_summary(ranked))
+        typer.echo(f"Ranked table written to {out}\n")
+
+
+app.command("night")(night_command)
+app.command("season")(season_command)
+
+
+def main():
+    """Console entry point."""
+    app()
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,1 @@
+"""Human-readable output: terminal tables, the one-star explanation, figures."""

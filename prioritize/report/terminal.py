@@ -1,0 +1,51 @@
+"""Compact terminal summaries of a ranked table."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from .. import CAUTION
+from ..catalog import status as st
+
+TOP_COLUMNS = [("rank", "rank", "{:.0f}"), ("star_id", "star", "{}"), ("stage", "stage", "{}"),
+               ("mass_msun", "M/Msun", "{:.2f}"), ("teff_k", "Teff/K", "{:.0f}"),
+               ("m_cz_msun", "Mcz/Msun", "{:.3g}"), ("a_li_base", "A(Li)base", "{:.2f}"),
+               ("delta_a_li", "dA(Li)", "{:+.2f}"), ("z_enrich", "z", "{:.1f}"),
+               ("p_detect", "P(z>=thr)", "{:.2f}"), ("lifetime_myr", "life/Myr", "{:.3g}"),
+               ("priority", "priority", "{:.3f}")]
+
+
+def _fmt(value, fmt):
+    if value is None or (isinstance(value, float) and value != value):
+        return "-"
+    try:
+        return fmt.format(value)
+    except (ValueError, TypeError):
+        return str(value)
+
+
+def top_table(table: pd.DataFrame, n: int) -> str:
+    """The first ``n`` ranked rows as an aligned plain-text table."""
+    rows = table[table["rank"].notna()].head(n)
+    header = [label for _, label, _ in TOP_COLUMNS]
+    body = [[_fmt(r.get(col), fmt) for col, _, fmt in TOP_COLUMNS] for r in rows.to_dict("records")]
+    widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(header)]
+    lines = ["  ".join(h.rjust(w) for h, w in zip(header, widths))]
+    lines += ["  ".join(c.rjust(w) for c, w in zip(b, widths)) for b in body]
+    return "\n".join(lines)
+
+
+def status_summary(table: pd.DataFrame) -> str:
+    """Counts per status, with what each code means, and the signature tally."""
+    counts = table["status"].value_counts()
+    lines = [f"{len(table)} stars read; status counts:"]
+    for code in list(st.ALL) + sorted(set(counts.index) - set(st.ALL)):
+        if code in counts:
+            lines.append(f"  {code:<24} {counts[code]:>7}  {st.DESCRIPTIONS.get(code, '')}")
+    ok = table[table["status"] == st.OK]
+    if len(ok):
+        lines.append(f"{int((ok['priority'] > 0).sum())} stars with a usable signature "
+                     f"(P(z >= threshold) > 0 and lifetime above the minimum); "
+                     f"{int((ok['p_detect'] >= 0.5).sum())} with P >= 0.5.")
+    lines.append(f"Caution: {CAUTION}")
+    return "\n".join(lines)

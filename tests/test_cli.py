@@ -1,0 +1,65 @@
+"""Command-line tests with typer's CliRunner: exit codes and what a user reads."""
+
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from prioritize.cli import app
+
+runner = CliRunner()
+
+
+@pytest.fixture()
+def catalog(tmp_path):
+    path = tmp_path / "cands.csv"
+    pd.DataFrame([
+        {"star_id": "A", "Teff": 5600, "e_Teff": 70, "logL": 0.6, "feh": 0.0},
+        {"star_id": "B", "mass": 1.3, "stage": "RGB"},
+        {"star_id": "C", "Teff": "hot", "logL": 0.5},
+    ]).to_csv(path, index=False)
+    return path
+
+
+def test_rank_writes_every_row_and_prints_a_summary(catalog, tmp_path):
+    out = tmp_path / "ranked.parquet"
+    result = runner.invoke(app, ["rank", str(catalog), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "status counts" in result.output and "Caution" in result.output
+    table = pd.read_parquet(out)
+    assert sorted(table["star_id"]) == ["A", "B", "C"]
+    assert table.set_index("star_id").loc["C", "status"] == "invalid_value"
+
+
+def test_rank_columns_option_and_bad_config(catalog, tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[planet]\nmass_jup = 2\n")
+    result = runner.invoke(app, ["rank", str(catalog), "-c", str(bad), "-o", str(tmp_path / "x.csv")])
+    assert result.exit_code == 2
+    assert "unknown key planet.mass_jup" in result.output
+    result = runner.invoke(app, ["rank", str(catalog), "--columns", "nonsense", "-o",
+                                 str(tmp_path / "x.csv")])
+    assert result.exit_code == 2 and "error:" in result.output
+
+
+def test_explain_shows_the_chain_and_unknown_star_is_one_line(catalog):
+    result = runner.invoke(app, ["explain", str(catalog), "A"])
+    assert result.exit_code == 0, result.output
+    for word in ("Placement on tracks", "Enrichment", "Lifetime", "Priority", "Caution"):
+        assert word in result.output
+    result = runner.invoke(app, ["explain", str(catalog), "Z"])
+    assert result.exit_code == 2 and "not in" in result.output
+    assert "Traceback" not in result.output
+
+
+def test_check_reports_problems_and_routes(catalog):
+    result = runner.invoke(app, ["check", str(catalog)])
+    assert result.exit_code == 0, result.output
+    assert "invalid_value" in result.output
+    assert "mass+stage" in result.output
+
+
+def test_demo_runs_on_the_bundled_samples(tmp_path):
+    result = runner.invoke(app, ["demo", "--output-dir", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "cluster_members_ranked.csv").exists()
+    assert (tmp_path / "field_stars_ranked.csv").exists()
