@@ -221,8 +221,10 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     active = status == st.OK
     missing = active & (route == "")
     status[missing] = st.MISSING_INPUTS
-    note[missing] = _append(note[missing], "cannot place on tracks: give mass+stage, or a "
-                            "Teff/colour with parallax, distance, log L or logg")
+    why = params["deriv_note"].fillna("").to_numpy(object) if "deriv_note" in params else ""
+    note[missing] = _append(_append(note[missing], "cannot place on tracks: give mass+stage, or a "
+                                    "Teff/colour with parallax, distance, log L or logg"),
+                            np.asarray(why, dtype=object)[missing] if len(why) else "")
     route = np.where(active & ~missing, route, "")
 
     star, mass, z, eep, placed, pnote, chi2 = _place(df, params, route, grid, cfg, rng)

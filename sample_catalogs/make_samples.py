@@ -109,15 +109,34 @@ def make_cluster(grid, rng) -> pd.DataFrame:
     return df
 
 
+def _draw_alive(grid, rng, n, eep_ranges):
+    """Field stars: Salpeter masses 0.8-3 Msun, [Fe/H] ~ N(-0.05, 0.2), an evolutionary
+    point uniform within one of ``eep_ranges`` (chosen at random); draws older than the
+    Universe (13.8 Gyr), off the grid or outside the colour-Teff relation are redrawn."""
+    mass, feh, eep, part = [], [], [], []
+    while sum(len(m) for m in mass) < n:
+        k = 3 * n
+        f = np.clip(rng.normal(-0.05, 0.2, k), -0.8, 0.17)
+        m = 0.8 * (1 - rng.uniform(size=k) * (1 - (3.0 / 0.8) ** -1.35)) ** (-1 / 1.35)
+        which = rng.integers(0, len(eep_ranges), k)
+        lo = np.array([r[0] for r in eep_ranges])[which]
+        hi = np.array([r[1] for r in eep_ranges])[which]
+        e = rng.uniform(lo, hi - 1)
+        p = _model_points(grid, m, feh_to_z(f), e)
+        # alive, younger than the Universe, and inside the colour-Teff relations' range
+        ok = (np.isfinite(p["logl"]) & (p["age_myr"] <= 13800.0)
+              & np.isfinite(ph.bp_rp_from_teff(p["teff"], p["logg"], f).value))
+        mass.append(m[ok]); feh.append(f[ok]); eep.append(e[ok]); part.append(which[ok])
+    return tuple(np.concatenate(x)[:n] for x in (mass, feh, eep, part))
+
+
 def make_field(grid, rng, n=2000) -> pd.DataFrame:
-    feh = np.clip(rng.normal(-0.05, 0.2, n), -0.8, 0.17)
+    # a third each on the main sequence, the subgiant branch, the giant branch + clump
+    mass, feh, eep, part = _draw_alive(grid, rng, n, [
+        (PHASE_EEPS["main_sequence"][0], PHASE_EEPS["main_sequence"][1]),
+        (PHASE_EEPS["subgiant"][0], PHASE_EEPS["subgiant"][1]),
+        (PHASE_EEPS["giant_branch"][0], PHASE_EEPS["core_he_burning"][1])])
     z = feh_to_z(feh)
-    mass = np.clip(0.8 * (1 - rng.uniform(size=n) * (1 - (3.0 / 0.8) ** -1.35)) ** (-1 / 1.35), 0.8, 3.0)
-    # evolutionary point: a third each on the main sequence, subgiant branch, giant branch + clump
-    part = rng.integers(0, 3, n)
-    lo = np.array([PHASE_EEPS["main_sequence"][0], PHASE_EEPS["subgiant"][0], PHASE_EEPS["giant_branch"][0]])
-    hi = np.array([PHASE_EEPS["main_sequence"][1], PHASE_EEPS["subgiant"][1], PHASE_EEPS["core_he_burning"][1]])
-    eep = rng.uniform(lo[part], hi[part] - 1)
     p = _model_points(grid, mass, z, eep)
     d = 10 ** rng.uniform(np.log10(80), np.log10(1500), n)
     ebv = np.clip(0.0004 * d * rng.uniform(0.3, 1.5, n), 0, 0.6)
@@ -156,10 +175,8 @@ def make_field(grid, rng, n=2000) -> pd.DataFrame:
 
 
 def make_reference(grid, rng, n=20000) -> pd.DataFrame:
-    feh = np.clip(rng.normal(-0.05, 0.2, n), -0.8, 0.17)
+    mass, feh, eep, _ = _draw_alive(grid, rng, n, [(0, PHASE_EEPS["core_he_burning"][1])])
     z = feh_to_z(feh)
-    mass = rng.uniform(0.8, 2.5, n)
-    eep = rng.uniform(0, PHASE_EEPS["core_he_burning"][1] - 1, n)
     p = _model_points(grid, mass, z, eep)
     zams = grid.interpolate(mass, z, np.zeros(n), columns=["logteff"])
     tams = grid.interpolate(mass, z, np.full(n, PHASE_EEPS["main_sequence"][1]), columns=["age_myr"])
