@@ -23,6 +23,7 @@ LOGG_SUN = 4.438                             # log10(G M_sun / R_sun^2), IAU 201
 M_JUP_MSUN = 9.546e-4                        # IAU 2015 nominal Jupiter mass / M_sun
 M_EARTH_MSUN = 3.004e-6                      # IAU 2015 nominal Earth mass / M_sun
 R_JUP_CM = 6.9911e9                          # Jupiter mean radius, 69,911 km
+R_EARTH_CM = 6.371e8                         # Earth mean radius, 6,371.0 km (IUGG; from memory)
 
 AMU_H = 1.008                                # atomic mass of H (u), IUPAC standard
 AMU_LI = 6.94                                # atomic mass of Li (u), IUPAC standard
@@ -36,5 +37,7 @@ C_LIGHT_CGS = _c.c.cgs.value                 # exact (SI definition) via astropy
 H_PLANCK_CGS = _c.h.cgs.value                # exact (SI definition) via astropy
 M_ELECTRON_CGS = _c.m_e.cgs.value            # CODATA 2018 via astropy
 AMU_CGS = _u.u.to(_u.g)                      # atomic mass unit, m(12C)/12, CODATA 2018
+AVOGADRO = _c.N_A.value                      # mol^-1, exact (SI definition) via astropy
+E_CHARGE_ESU = _c.e.gauss.value              # elementary charge (statcoulomb), exact via astropy
 EV_ERG = _u.eV.to(_u.erg)                    # exact (SI definition)
 A_RAD_CGS = 4.0 * SIGMA_SB_CGS / C_LIGHT_CGS  # radiation density constant a = 4 sigma / c
