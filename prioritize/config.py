@@ -78,6 +78,30 @@ class ClusterConfig:
 
 
 @dataclass(frozen=True)
+class RotationConfig:
+    """How rotation evidence is judged (SCIENCE.md §11)."""
+
+    gyro_relation: str = _spec("barnes2007", choices=("barnes2007", "mh08"),
+                               doc="gyrochronology relation for main-sequence dwarfs")
+    base_odds: float = _spec(0.02, lo=1e-6, hi=1.0,
+                             doc="prior odds of a recent engulfment before the rotation evidence")
+    rapid_anomaly_sigma: float = _spec(3.0, lo=0.5, hi=50.0,
+                                       doc="rotation anomaly (sigma) that counts as anomalous")
+
+
+@dataclass(frozen=True)
+class ObservingConfig:
+    """The instrument and conditions the observing cost is computed for (SCIENCE.md §7-§8)."""
+
+    instrument: str = _spec("echelle-4m", doc="preset name in configs/instruments/ or a TOML path")
+    airmass: float = _spec(1.2, lo=1.0, hi=3.0, doc="airmass assumed for the exposure")
+    extinction_coeff: float = _spec(0.07, lo=0.0, hi=1.0,
+                                    doc="atmospheric extinction near 6708 A (mag per airmass)")
+    k_sigma: float = _spec(3.0, lo=1.0, hi=20.0,
+                           doc="the enrichment's equivalent-width rise must be seen at this many sigma")
+
+
+@dataclass(frozen=True)
 class RunConfig:
     """Batching."""
 
@@ -94,6 +118,8 @@ class Config:
     baseline: BaselineConfig = field(default_factory=BaselineConfig)
     scoring: ScoringConfig = field(default_factory=ScoringConfig)
     cluster: ClusterConfig = field(default_factory=ClusterConfig)
+    rotation: RotationConfig = field(default_factory=RotationConfig)
+    observing: ObservingConfig = field(default_factory=ObservingConfig)
     run: RunConfig = field(default_factory=RunConfig)
     columns: dict = field(default_factory=dict)
 

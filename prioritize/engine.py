@@ -14,19 +14,29 @@ track of the median sample -> priority.
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 
-from . import score
+from . import exposure, rotation, score, spectra
 from .catalog import status as st
 from .config import Config
+from .errors import PrioritizeError, PrioritizeWarning
 from .lithium import baseline, lifetime
-from .lithium.enrichment import PlanetComposition, enriched_abundance, mjup_to_msun
+from .constants import M_JUP_MSUN
+from .lithium.enrichment import (PlanetComposition, enriched_abundance, mjup_to_msun,
+                                 planet_mass_for_abundance)
 from .stars import evolution, placement
-from .stars.photometry import derive_stellar_parameters
+from .instruments import load_instrument
+from .stars.photometry import derive_stellar_parameters, teff_from_b_v_dwarf
 from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid, z_to_feh
 
+MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
+RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
+VSINI_DEFAULT_ERROR_KMS = 1.0    # assumed v sin i error when the catalog gives none (common practice)
+THIN_SHELL_K2 = 2.0 / 3.0        # k^2 of a thin shell; deep convective envelopes approach n=1.5 (0.205)
 LIFETIME_CHUNK = 2000        # stars per chunk when following tracks into the future
 
 OUTPUT_COLUMNS = [
@@ -34,7 +44,13 @@ OUTPUT_COLUMNS = [
     "mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "stage", "eep",
     "teff_k", "logl_lsun", "radius_rsun", "feh", "m_cz_msun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
-    "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight",
+    "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight", "m_planet_min_mjup",
+    "veq_kms", "veq_expected_kms", "veq_expected_spread_kms", "rot_expect_source",
+    "rot_anomaly_sigma", "rapid_rotator", "m_planet_spin_mjup", "spin_li_consistency",
+    "p_engulfed_rotation", "p_engulfed",
+    "ew_base_mA", "ew_enriched_mA", "delta_ew_mA", "line_fwhm_A", "snr_needed", "r_c_mag",
+    "exposure_s", "exposure_flag", "snr_at_exposure", "overhead_s", "time_on_target_s",
+    "p_measured", "instrument", "lines_to_measure", "coverage_missing",
     "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source",
     "teff_zams_k", "a_li_main_sequence", "dilution_dex", "m_planet_msun", "chi2_best",
 ]
@@ -240,7 +256,7 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     if star.size:
         shape = (idx.size, s)
         mass, z, eep = mass.reshape(shape), z.reshape(shape), eep.reshape(shape)
-        model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "age_myr"])
+        model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "logg", "age_myr"])
         m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
         m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
         li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, cfg, composition)
@@ -270,6 +286,9 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
             "lifetime_myr": life, "lifetime_end": end,
             "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
             "dilution_dex": li["dilution"][r, rep],
+            "model_logg": model["logg"][r, rep],
+            "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
+                                                     columns=["logr"])["logr"],
         }
     for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
                 "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
@@ -281,14 +300,23 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     out["m_planet_msun"] = np.where(out["z_enrich"].notna(), mjup_to_msun(cfg.planet.mass_mjup), np.nan)
     out["chi2_best"] = chi2
     _adopt(out, params, idx, res, n)
+    out["note"] = ""
     out["placement_method"] = np.where(route == "", "", route)
     out["baseline_source"] = np.where(out["a_li_base"].notna(), "prior (model, not measured)", "")
+    model_logg = _scatter(n, idx, res.get("model_logg"), float)
+    out["m_planet_min_mjup"] = planet_mass_for_abundance(
+        out["a_li_base"], out["a_li_base"] + cfg.thresholds.z_signature * out["a_li_scatter"],
+        out["m_cz_msun"], composition) / M_JUP_MSUN
+    _rotation_columns(out, df, params, _scatter(n, idx, res.get("radius_ms_rsun"), float), cfg)
+    _observing_columns(out, df, model_logg, cfg)
     weight = score.lifetime_weight(out["lifetime_myr"].to_numpy(), cfg.thresholds.min_lifetime_myr,
                                    cfg.scoring.lifetime_scale_myr)
     out["lifetime_weight"] = weight
-    out["priority"] = score.interim_priority(out["p_detect"].to_numpy(), weight)
+    out["p_engulfed"] = out["p_engulfed_rotation"] * weight
+    out["priority"] = score.detections_per_hour(out["p_engulfed"], out["p_detect"], out["p_measured"],
+                                                out["time_on_target_s"])
     out["status"] = status
-    out["note"] = note
+    out["note"] = _append(note, out["note"].to_numpy(object))
     out["rank"] = np.nan
     extra = [c for c in df.columns if c not in out.columns and c not in ("status", "note")]
     passthrough = df[extra].rename(columns={c: c for c in extra})
@@ -296,6 +324,149 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     for c in clash:
         passthrough[f"input_{c}"] = df[c].to_numpy()
     return pd.concat([out[OUTPUT_COLUMNS], passthrough.reset_index(drop=True)], axis=1)
+
+
+def _b_v0(df, params):
+    """Dereddened B-V: the catalog's where given, else from Teff by inverting the
+    Casagrande et al. (2010) dwarf relation (at [Fe/H] = 0; used only for gyrochronology)."""
+    grid_bv = np.linspace(0.18, 1.29, 400)
+    grid_teff = teff_from_b_v_dwarf(grid_bv, np.zeros_like(grid_bv)).value
+    teff = params["teff_k"].to_numpy(float)
+    from_teff = np.interp(teff, grid_teff[::-1], grid_bv[::-1], left=np.nan, right=np.nan)
+    observed = _column(df, "b_v") - np.nan_to_num(_column(df, "ebv"))
+    return np.where(np.isfinite(observed), observed, from_teff)
+
+
+def _rotation_columns(out, df, params, radius_ms, cfg):
+    """Rotation evidence (SCIENCE.md §11): observed and expected v_eq, the anomaly, the
+    planet mass the spin-up needs, and the prior odds of an engulfment it implies."""
+    n = len(out)
+    radius = out["radius_rsun"].to_numpy(float)
+    radius = np.where(radius > 0, radius, np.nan)
+    prot, prot_err = _column(df, "prot_d"), _column(df, "prot_d_err")
+    vsini, vsini_err = _column(df, "vsini_kms"), _column(df, "vsini_kms_err")
+    stage = out["stage"].to_numpy(object)
+    stage_ok = np.isin(stage, st.STAGES)
+    b_v0 = _b_v0(df, params)
+    cluster_seq = None
+    if "cluster" in df.columns and np.isfinite(prot).sum() >= 9:
+        cluster_seq = _cluster_sequences(df["cluster"].astype(str).to_numpy(), b_v0, prot, stage)
+    exp = rotation.expected_rotation(
+        np.where(stage_ok, stage, "main_sequence"), np.where(np.isfinite(radius), radius, 1.0),
+        b_v0=b_v0, age_myr=out["age_gyr"].to_numpy(float) * 1e3,
+        mass_msun=out["mass_msun"].to_numpy(float), radius_ms_rsun=radius_ms,
+        gyro_relation=cfg.rotation.gyro_relation,
+        cluster_sequence=cluster_seq, cluster_color=b_v0)
+    usable = stage_ok & np.isfinite(radius)
+    v_exp = np.where(usable, exp.veq_expected_kms, np.nan)
+    v_spread = np.where(usable, exp.veq_expected_spread_kms, np.nan)
+    veq = rotation.equatorial_velocity_kms(np.where(np.isfinite(radius), radius, 1.0), prot)
+    veq = np.where(np.isfinite(radius), veq, np.nan)
+    veq_err = veq * np.hypot(np.nan_to_num(prot_err / prot), RADIUS_FRACTIONAL_ERROR)
+    observed = np.where(np.isfinite(veq), veq, vsini)
+    observed_err = np.where(np.isfinite(veq), veq_err,
+                            np.where(np.isfinite(vsini_err), vsini_err, VSINI_DEFAULT_ERROR_KMS))
+    anomaly = rotation.rotation_anomaly_sigma(observed, observed_err, v_exp, v_spread)
+    exceeds, vnote = rotation.vsini_consistency(vsini, vsini_err, radius, RADIUS_FRACTIONAL_ERROR * radius,
+                                                prot, prot_err)
+    out["veq_kms"] = veq
+    out["veq_expected_kms"] = v_exp
+    out["veq_expected_spread_kms"] = v_spread
+    out["rot_expect_source"] = np.where(usable, exp.rot_expect_source, "")
+    out["rot_anomaly_sigma"] = anomaly
+    rapid = rotation.rapid_rotator_flag(vsini, np.where(stage_ok, stage, "main_sequence"), v_exp, v_spread)
+    out["rapid_rotator"] = (rapid & stage_ok) | (anomaly >= cfg.rotation.rapid_anomaly_sigma)
+    mass = out["mass_msun"].to_numpy(float)
+    m_cz = np.minimum(out["m_cz_msun"].to_numpy(float), mass)   # initial vs current mass
+    frac = np.clip(m_cz / mass, 0.0, 1.0)
+    k2_env = THIN_SHELL_K2 + (rotation.K2_POLYTROPE_N15 - THIN_SHELL_K2) * np.clip(frac / 0.5, 0, 1)
+    excess = np.clip(observed - v_exp, 0.0, None)
+    ok = np.isfinite(excess) & (m_cz > 0) & np.isfinite(radius)
+    spin = np.full(n, np.nan)
+    spin[ok] = rotation.planet_mass_for_spin_mjup(excess[ok], mass[ok], radius[ok], m_cz[ok], k2_env[ok])
+    out["m_planet_spin_mjup"] = spin
+    out["spin_li_consistency"] = rotation.spin_lithium_consistency(spin, out["m_planet_min_mjup"].to_numpy(float))
+    out["p_engulfed_rotation"] = rotation.engulfment_prior_odds(anomaly, base_odds=cfg.rotation.base_odds)
+    out["note"] = _append(out.get("note", pd.Series([""] * n)).fillna("").to_numpy(object),
+                          np.where(exceeds, vnote, ""))
+
+
+def _cluster_sequences(cluster, b_v0, prot, stage):
+    """One robust rotation sequence per cluster from its dwarfs with periods (None if
+    no cluster has enough); returned as a per-row lookup object."""
+    fits = {}
+    dwarf = np.isin(stage, rotation.GYRO_STAGES)
+    for name in np.unique(cluster):
+        sel = (cluster == name) & dwarf & np.isfinite(prot) & np.isfinite(b_v0)
+        if sel.sum() >= 9:
+            try:
+                fits[name] = rotation.fit_cluster_sequence(b_v0[sel], prot[sel])
+            except PrioritizeError:
+                continue
+    if not fits:
+        return None
+    return _PerClusterSequence(cluster, fits)
+
+
+class _PerClusterSequence:
+    """Adapter: predict with each row's own cluster sequence (NaN for rows without one)."""
+
+    def __init__(self, cluster, fits):
+        self.cluster, self.fits = cluster, fits
+
+    def predict(self, color):
+        color = np.broadcast_to(np.asarray(color, dtype=float), self.cluster.shape)
+        period = np.full(self.cluster.shape, np.nan)
+        spread = np.full(self.cluster.shape, np.nan)
+        for name, fit in self.fits.items():
+            sel = self.cluster == name
+            period[sel], spread[sel] = fit.predict(color[sel])
+        return period, spread
+
+
+def _observing_columns(out, df, model_logg, cfg):
+    """Li 6708 line strength, S/N needed, exposure and the lines to take (SCIENCE.md §7-§10, §20)."""
+    inst = load_instrument(cfg.observing.instrument)
+    teff = out["teff_k"].to_numpy(float)
+    logg = np.where(np.isfinite(_column(df, "logg")), _column(df, "logg"), model_logg)
+    feh = out["feh"].to_numpy(float)
+    ew_base = spectra.ew_li6708_mA(teff, logg, feh, out["a_li_base"].to_numpy(float))
+    ew_new = spectra.ew_li6708_mA(teff, logg, feh, out["a_li_enriched"].to_numpy(float))
+    vsini = _column(df, "vsini_kms")
+    broadening = np.where(np.isfinite(vsini), vsini,
+                          np.pi / 4 * np.nan_to_num(out["veq_expected_kms"].to_numpy(float)))
+    fwhm = spectra.line_fwhm_angstrom(inst.resolving_power, teff, broadening)
+    delta = ew_new - ew_base
+    snr = spectra.snr_needed(np.where(delta > 0, delta, np.nan), fwhm, inst.pixel_width_angstrom(),
+                             k_sigma=cfg.observing.k_sigma)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PrioritizeWarning)  # colour-range warnings: noted per row below
+        r_gaia = exposure.r_c_from_gaia(_column(df, "g_mag"), _column(df, "bp_rp"))
+        r_v = exposure.r_c_from_v(_column(df, "v_mag"), _column(df, "b_v"))
+    r_c = np.where(np.isfinite(r_gaia), r_gaia, r_v)
+    plan = exposure.plan_exposure(inst, snr, r_c, a_v=0.0, airmass=cfg.observing.airmass,
+                                  extinction_coeff=cfg.observing.extinction_coeff)
+    out["ew_base_mA"], out["ew_enriched_mA"], out["delta_ew_mA"] = ew_base, ew_new, delta
+    out["line_fwhm_A"], out["snr_needed"], out["r_c_mag"] = fwhm, snr, r_c
+    out["exposure_s"] = plan.exposure_s
+    out["exposure_flag"] = np.where(np.isfinite(plan.exposure_s), plan.flag, "")
+    out["snr_at_exposure"] = plan.snr_reached
+    out["overhead_s"] = np.where(np.isfinite(plan.exposure_s), plan.overhead_s, np.nan)
+    out["time_on_target_s"] = plan.total_s
+    out["p_measured"] = np.clip((plan.snr_reached / snr) ** 2, 0.0, 1.0)
+    out["instrument"] = inst.name
+    computed = np.isfinite(teff) & np.isfinite(out["a_li_enriched"].to_numpy(float))
+    lines, missing = spectra.lines_to_measure(
+        np.where(computed, teff, 5000.0), np.where(np.isfinite(logg), logg, 4.0),
+        np.where(computed, out["a_li_enriched"], 1.0),
+        np.where(np.isfinite(plan.snr_reached) & (plan.snr_reached > 0), plan.snr_reached, 1.0), inst,
+        feh=np.nan_to_num(feh), vsini_kms=np.nan_to_num(broadening), k_sigma=cfg.observing.k_sigma)
+    out["lines_to_measure"] = np.where(computed, ["; ".join(x) for x in lines], "")
+    out["coverage_missing"] = np.where(computed, ["; ".join(x) for x in missing], "")
+    no_mag = computed & ~np.isfinite(r_c)
+    out["note"] = _append(out["note"].to_numpy(object),
+                          np.where(no_mag, "no magnitude for an exposure estimate (give g_mag+bp_rp "
+                                           "or v_mag+b_v): not ranked by detections per hour", ""))
 
 
 def _mode(stage_index):

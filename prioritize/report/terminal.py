@@ -12,7 +12,9 @@ TOP_COLUMNS = [("rank", "rank", "{:.0f}"), ("star_id", "star", "{}"), ("stage", 
                ("m_cz_msun", "Mcz/Msun", "{:.3g}"), ("a_li_base", "A(Li)base", "{:.2f}"),
                ("delta_a_li", "dA(Li)", "{:+.2f}"), ("z_enrich", "z", "{:.1f}"),
                ("p_detect", "P(z>=thr)", "{:.2f}"), ("lifetime_myr", "life/Myr", "{:.3g}"),
-               ("priority", "priority", "{:.3f}")]
+               ("rot_anomaly_sigma", "rot/sig", "{:+.1f}"), ("ew_enriched_mA", "EW/mA", "{:.0f}"),
+               ("snr_needed", "S/N", "{:.0f}"), ("exposure_s", "exp/s", "{:.0f}"),
+               ("priority", "det/h", "{:.2e}")]
 
 
 def _fmt(value, fmt):
@@ -47,5 +49,12 @@ def status_summary(table: pd.DataFrame) -> str:
         lines.append(f"{int((ok['priority'] > 0).sum())} stars with a usable signature "
                      f"(P(z >= threshold) > 0 and lifetime above the minimum); "
                      f"{int((ok['p_detect'] >= 0.5).sum())} with P >= 0.5.")
+    ranked = table[table["rank"].notna()]
+    if len(ranked) and "time_on_target_s" in ranked:
+        hours = ranked["time_on_target_s"].to_numpy(float) / 3600.0
+        inst = ranked["instrument"].iloc[0]
+        lines.append(f"Time on target ({inst}, exposure + overheads): top 10 {hours[:10].sum():.1f} h, "
+                     f"top 50 {hours[:50].sum():.1f} h, all ranked {hours.sum():.1f} h; "
+                     f"expected detections in the top 10: {ranked['priority'].to_numpy(float)[:10].dot(hours[:10]):.2g}.")
     lines.append(f"Caution: {CAUTION}")
     return "\n".join(lines)
