@@ -165,16 +165,19 @@ def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
     return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
 
 
-def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, cfg, composition):
+def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition):
     """Baseline, enrichment and significance at track points (any shape).
 
     ``m_mix`` is the envelope mass the planet is mixed into, ``m_cz_max`` the deepest
-    envelope so far (it sets the baseline's dilution)."""
+    envelope so far, ``m_cz_ms`` the deepest on the main sequence.  The main-sequence
+    prior already holds the lithium the star kept there, so dilution starts only when
+    the envelope reaches below both the lithium-preserving layer and its own
+    main-sequence depth."""
     zeros = np.zeros_like(age_myr)
     zams = grid.interpolate(mass, z, zeros, columns=["logteff"])
     tams = grid.interpolate(mass, z, zeros + PHASE_EEPS["main_sequence"][1], columns=["age_myr"])
     teff_zams = 10 ** zams["logteff"]
-    m_pres = baseline.li_preserving_mass_interim(mass)
+    m_pres = np.fmax(baseline.li_preserving_mass_interim(mass), m_cz_ms)
     a_ms = baseline.main_sequence_lithium(teff_zams, np.minimum(age_myr, tams["age_myr"]) / 1e3)
     dilution = baseline.dredge_up_dilution(m_cz_max, m_pres)
     a_base = np.maximum(a_ms + dilution, baseline.A_LI_FLOOR)
@@ -185,7 +188,7 @@ def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, cfg, composition):
             "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution}
 
 
-def _lifetimes(grid, mass, z, eep, m_cz_max_now, cfg, composition):
+def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition):
     """Lifetime of the signature following each (mass, z) track from ``eep``."""
     n = mass.size
     life = np.full(n, np.nan)
@@ -207,7 +210,8 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, cfg, composition):
         # the planet's lithium stays in the deepest envelope reached since engulfment
         m_mix = np.fmax.accumulate(m_cz, axis=1)
         m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
-        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, cfg, composition)
+        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, m_cz_ms[sl, None], cfg,
+                         composition)
         z_along = np.where(ok, li["z"], np.nan)
         age = np.where(ok, cols["age_myr"], np.nan)
         bump_logl = evolution.rgb_bump_logl(m[:, 0], z_to_feh(zz[:, 0]))
@@ -259,15 +263,18 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
         model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "logg", "age_myr"])
         m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
         m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
-        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, cfg, composition)
+        ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
+        m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
+                                           convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
+        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition)
         bump = evolution.rgb_bump_logl(mass, z_to_feh(z))
         stage_i = evolution.stage_index(eep, model["logl"], bump, PHASE_EEPS)
         zs = li["z"]
         z_med = np.nanmedian(zs, axis=1)
         rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
         r = np.arange(idx.size)
-        life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep], cfg,
-                               composition)
+        life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
+                               m_cz_ms[r, rep], cfg, composition)
         res = {
             "mass_msun": mass.mean(axis=1), "mass_err_msun": mass.std(axis=1),
             "age_gyr": model["age_myr"].mean(axis=1) / 1e3,
