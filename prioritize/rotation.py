@@ -95,6 +95,7 @@ SPIN_LI_AGREEMENT_FACTOR = 3.0
 # engulfment produces (1-2 km/s for a hot Jupiter, SCIENCE §11, against ~1 km/s spreads).
 ENGULFMENT_BASE_ODDS = 0.02
 ENGULFMENT_SHIFT_SIGMA = 2.0
+OTHER_CAUSE_FRACTION = 0.05
 
 
 # --------------------------------------------------------------------------- helpers
@@ -932,18 +933,22 @@ def spin_lithium_consistency(m_planet_spin, m_planet_min_li, factor=SPIN_LI_AGRE
 
 
 def engulfment_prior_odds(rot_anomaly_sigma, base_odds=ENGULFMENT_BASE_ODDS,
-                          engulfed_shift_sigma=ENGULFMENT_SHIFT_SIGMA):
+                          engulfed_shift_sigma=ENGULFMENT_SHIFT_SIGMA,
+                          other_cause_fraction=OTHER_CAUSE_FRACTION):
     """Probability of a recent engulfment given the rotation anomaly (``p_engulfed_rotation``).
 
-    Two hypotheses for the anomaly z: no engulfment, z ~ N(0, 1); recent engulfment,
-    z ~ N(μ, 1), μ = ``engulfed_shift_sigma``.  Their likelihood ratio is
-    LR = exp(μ z - μ²/2), and with prior odds O
+    Two hypotheses for the anomaly z: recent engulfment, z ~ N(μ, 1),
+    μ = ``engulfed_shift_sigma``; no engulfment, z ~ (1 - f) N(0, 1) + f N(μ, 1), where
+    the fraction f of stars spun up by something else (tidal locking in binaries,
+    mergers) shows the same anomaly.  With g = N(z; μ, 1)/N(z; 0, 1) = exp(μ z - μ²/2)
+    the likelihood ratio is LR = g / ((1 - f) + f g) and, with prior odds O,
 
         p = O LR / (1 + O LR),
 
-    a logistic in z: monotonic, bounded in [0, 1], equal to the prior O/(1 + O) at
-    z = μ/2 and to 1/2 at z = (ln(1/O) + μ²/2)/μ (3.0σ with the defaults).  Equal
-    widths keep it monotonic (unequal ones make LR rise again for very negative z).
+    monotonic in z, equal to the prior O/(1 + O) at z = μ/2, and saturating at
+    odds O/f for large anomalies: a fast rotator is a better candidate, never a sure
+    one.  f = 0 recovers the pure logistic.  Equal widths keep it monotonic (unequal
+    ones make LR rise again for very negative z).
     Defaults: O = 0.02, about the fraction of giants that are rapid rotators
     (Carlberg et al. 2011), an upper bound because tidally locked binaries and mergers
     also spin stars up; μ = 2, a hot Jupiter's 1-2 km/s spin-up against a ~1 km/s
@@ -957,6 +962,10 @@ def engulfment_prior_odds(rot_anomaly_sigma, base_odds=ENGULFMENT_BASE_ODDS,
         Prior odds O > 0.
     engulfed_shift_sigma : float
         Mean anomaly μ > 0 of a recently engulfing star.
+    other_cause_fraction : float
+        f in [0, 1): fraction of non-engulfing stars with an engulfment-like anomaly
+        (default 0.05, a planning choice: binaries make up a large share of rapidly
+        rotating giants; from memory).
 
     Returns
     -------
@@ -973,9 +982,16 @@ def engulfment_prior_odds(rot_anomaly_sigma, base_odds=ENGULFMENT_BASE_ODDS,
     if not (np.isfinite(engulfed_shift_sigma) and engulfed_shift_sigma > 0):
         raise PrioritizeError(f"{func}: engulfed_shift_sigma must be > 0, "
                               f"got {engulfed_shift_sigma!r}")
+    if not (0.0 <= other_cause_fraction < 1.0):
+        raise PrioritizeError(f"{func}: other_cause_fraction must be in [0, 1), "
+                              f"got {other_cause_fraction!r}")
     z = _array("rot_anomaly_sigma", func, rot_anomaly_sigma)
     mu = engulfed_shift_sigma
-    log_odds = np.log(base_odds) + np.where(np.isnan(z), mu * mu / 2, mu * z) - mu * mu / 2
+    log_g = np.where(np.isnan(z), 0.0, mu * z - mu * mu / 2)
+    # ln LR = ln g - ln((1 - f) + f g), written to stay finite for large |ln g|
+    f = other_cause_fraction
+    log_lr = log_g - np.logaddexp(np.log1p(-f), (np.log(f) if f > 0 else -np.inf) + log_g)
+    log_odds = np.log(base_odds) + log_lr
     return 0.5 * (1.0 + np.tanh(0.5 * log_odds))
 
 

@@ -292,13 +292,18 @@ def test_vsini_consistency():
 def test_engulfment_probability_is_monotonic_bounded_and_prior_when_unknown():
     z = np.linspace(-20, 40, 2001)
     p = rot.engulfment_prior_odds(z)
-    assert np.all(np.diff(p) >= 0) and p.min() >= 0 and p.max() <= 1
+    assert np.all(np.diff(p) >= -1e-15) and p.min() >= 0 and p.max() <= 1  # round-off at saturation
     prior = rot.ENGULFMENT_BASE_ODDS / (1 + rot.ENGULFMENT_BASE_ODDS)
     assert rot.engulfment_prior_odds(np.nan) == pytest.approx(prior)
     # Likelihood ratio of N(mu, 1) to N(0, 1) at z: the posterior from Bayes' rule directly.
     mu, odds, z0 = 2.0, 0.02, 3.3
     lr = np.exp(-0.5 * (z0 - mu) ** 2) / np.exp(-0.5 * z0 ** 2)
-    assert rot.engulfment_prior_odds(z0, odds, mu) == pytest.approx(odds * lr / (1 + odds * lr))
+    assert rot.engulfment_prior_odds(z0, odds, mu, 0.0) == pytest.approx(odds * lr / (1 + odds * lr))
+    # with a fraction f of other causes the evidence saturates at odds O/f (Bayes' rule)
+    f = 0.05
+    lr_mix = lr / ((1 - f) + f * lr)
+    assert rot.engulfment_prior_odds(z0, odds, mu, f) == pytest.approx(odds * lr_mix / (1 + odds * lr_mix))
+    assert rot.engulfment_prior_odds(50.0, odds, mu, f) == pytest.approx((odds / f) / (1 + odds / f))
 
 
 # ------------------------------------------------------------------- line broadening
