@@ -129,13 +129,14 @@ def test_hot_layer_mass_against_direct_integration():
     """Delta M_hot = int lambda dm / lambda_b over an adiabatic layer, integrated directly
     with the full (screened) rate instead of a power law."""
     r_rsun, rho_b, t_b, mass, nabla_ad, n, mu = 0.6, 0.5, 2.5e6, 0.9, 0.4, 1.5, 0.6
-    scale_height = K_B_CGS * t_b / (mu * M_H_CGS * G_CGS * mass * M_SUN_G / (r_rsun * R_SUN_CM) ** 2)
+    r_cm = r_rsun * R_SUN_CM
+    scale_height = K_B_CGS * t_b / (mu * M_H_CGS * G_CGS * mass * M_SUN_G / r_cm ** 2)
     lam_b = 1.0 / b.li_destruction_timescale_yr(t_b, rho_b)
 
-    def integrand(s):            # s = ln(T / T_b) <= 0, d ln P = ds / nabla_ad
+    def integrand(s):            # s = ln(T / T_b) <= 0; H_P ~ T; d ln P = ds / nabla_ad
         rho = rho_b * np.exp(n * s)
         lam = 1.0 / b.li_destruction_timescale_yr(t_b * np.exp(s), rho)
-        return (lam / lam_b) * 4 * np.pi * (r_rsun * R_SUN_CM) ** 2 * rho * scale_height * np.exp(s) / nabla_ad
+        return (lam / lam_b) * 4 * np.pi * r_cm ** 2 * rho * scale_height * np.exp(s) / nabla_ad
 
     direct, _ = quad(integrand, -2.0, 0.0, epsabs=0, epsrel=1e-8)
     got = b.hot_layer_mass(r_rsun, rho_b, t_b, mass, nabla_ad=nabla_ad, n=n, mu=mu)
