@@ -82,6 +82,12 @@ def rank(
                                                 help="Significance that counts as a signature."),
     seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed."),
     top: Optional[int] = typer.Option(None, "--top", min=0, help="Rows shown in the terminal."),
+    reference: Optional[Path] = typer.Option(None, "--reference", exists=True, dir_okay=False,
+                                             help="Your own A(Li) table (Teff, logg, [Fe/H], A(Li), "
+                                                  "upper-limit flag) for the baseline."),
+    instrument: Optional[str] = typer.Option(None, "--instrument",
+                                             help="Instrument preset (echelle-2m, echelle-4m, "
+                                                  "echelle-8m) or a TOML file."),
 ):
     """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
 
@@ -93,7 +99,9 @@ def rank(
 
     cfg, table, messages = _load(catalog, config, columns, {
         "planet.mass_mjup": planet_mass, "thresholds.z_signature": z_threshold,
-        "scoring.seed": seed, "run.top": top})
+        "scoring.seed": seed, "run.top": top, "observing.instrument": instrument,
+        "baseline.source": "reference" if reference else None,
+        "baseline.reference": str(reference) if reference else None})
     for m in messages:
         typer.echo(f"  {m}", err=True)
     ranked = rank_table(table, cfg, progress=_progress())

@@ -49,7 +49,13 @@ class ThresholdConfig:
 class BaselineConfig:
     """The lithium baseline the enrichment is measured against."""
 
-    source: str = _spec("prior", choices=("prior",), doc="where the baseline comes from")
+    source: str = _spec("prior", choices=("prior", "reference"),
+                        doc="built-in model prior, or the user's reference population")
+    reference: str = _spec("", doc="reference abundance table (any catalog format) for source = reference")
+    teff_step: float = _spec(100.0, lo=10.0, hi=2000.0, doc="reference bin width in Teff (K)")
+    logg_step: float = _spec(0.25, lo=0.05, hi=2.0, doc="reference bin width in logg (dex)")
+    feh_step: float = _spec(0.0, lo=0.0, hi=2.0, doc="reference bin width in [Fe/H] (0: not binned)")
+    min_count: int = _spec(20, lo=1, hi=100000, doc="fewest reference stars per bin before merging")
     prior_scatter_dex: float = _spec(0.4, lo=0.05, hi=2.0,
                                      doc="intrinsic scatter of the built-in prior (dex)")
     measurement_error_dex: float = _spec(0.0, lo=0.0, hi=2.0,

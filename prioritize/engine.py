@@ -33,6 +33,7 @@ from .stars.photometry import derive_stellar_parameters, teff_from_b_v_dwarf
 from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid, z_to_feh
 
 MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
+PRIOR_SOURCE = "prior (model, not measured)"
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
 VSINI_DEFAULT_ERROR_KMS = 1.0    # assumed v sin i error when the catalog gives none (common practice)
@@ -51,7 +52,7 @@ OUTPUT_COLUMNS = [
     "ew_base_mA", "ew_enriched_mA", "delta_ew_mA", "line_fwhm_A", "snr_needed", "r_c_mag",
     "exposure_s", "exposure_flag", "snr_at_exposure", "overhead_s", "time_on_target_s",
     "p_measured", "instrument", "lines_to_measure", "coverage_missing",
-    "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source",
+    "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source", "baseline_n",
     "teff_zams_k", "a_li_main_sequence", "dilution_dex", "m_planet_msun", "chi2_best",
 ]
 
@@ -165,14 +166,16 @@ def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
     return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
 
 
-def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition):
+def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition, where=None,
+                reference=None):
     """Baseline, enrichment and significance at track points (any shape).
 
     ``m_mix`` is the envelope mass the planet is mixed into, ``m_cz_max`` the deepest
     envelope so far, ``m_cz_ms`` the deepest on the main sequence.  The main-sequence
     prior already holds the lithium the star kept there, so dilution starts only when
     the envelope reaches below both the lithium-preserving layer and its own
-    main-sequence depth."""
+    main-sequence depth.  With a reference population, the baseline is looked up at the
+    points' model Teff and logg (``where``); points it does not cover keep the prior."""
     zeros = np.zeros_like(age_myr)
     zams = grid.interpolate(mass, z, zeros, columns=["logteff"])
     tams = grid.interpolate(mass, z, zeros + PHASE_EEPS["main_sequence"][1], columns=["age_myr"])
@@ -181,14 +184,25 @@ def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, compositi
     a_ms = baseline.main_sequence_lithium(teff_zams, np.minimum(age_myr, tams["age_myr"]) / 1e3)
     dilution = baseline.dredge_up_dilution(m_cz_max, m_pres)
     a_base = np.maximum(a_ms + dilution, baseline.A_LI_FLOOR)
-    sigma = np.full_like(a_base, np.hypot(cfg.baseline.prior_scatter_dex,
-                                          cfg.baseline.measurement_error_dex))
+    sigma = np.full_like(a_base, cfg.baseline.prior_scatter_dex)
+    source = np.full(a_base.shape, PRIOR_SOURCE, dtype=object)
+    count = np.zeros(a_base.shape)
+    if reference is not None:
+        feh = z_to_feh(z) if cfg.baseline.feh_step > 0 else None
+        ref = reference.lookup(10 ** where["logteff"], where["logg"], feh)
+        hit = np.isfinite(ref["a_li_base"])
+        a_base = np.where(hit, ref["a_li_base"], a_base)
+        sigma = np.where(hit, ref["a_li_scatter"], sigma)
+        source = np.where(hit, ref["baseline_source"], "prior (" + ref["baseline_source"].astype(object) + ")")
+        count = np.where(hit, ref["baseline_n"], 0)
+    sigma = np.hypot(sigma, cfg.baseline.measurement_error_dex)
     a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup), composition)
     return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_base) / sigma,
-            "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution}
+            "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution, "source": source,
+            "count": count}
 
 
-def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition):
+def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, reference=None):
     """Lifetime of the signature following each (mass, z) track from ``eep``."""
     n = mass.size
     life = np.full(n, np.nan)
@@ -205,13 +219,13 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition):
         mm = np.broadcast_to(m, future.shape)
         zb = np.broadcast_to(zz, future.shape)
         eb = np.where(ok, future, 0.0)
-        cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl"])
+        cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl", "logteff", "logg"])
         m_cz = np.where(ok, convective_envelope(grid, mm, zb, eb)["m_cz_msun"], np.nan)
         # the planet's lithium stays in the deepest envelope reached since engulfment
         m_mix = np.fmax.accumulate(m_cz, axis=1)
         m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
         li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, m_cz_ms[sl, None], cfg,
-                         composition)
+                         composition, where=cols, reference=reference)
         z_along = np.where(ok, li["z"], np.nan)
         age = np.where(ok, cols["age_myr"], np.nan)
         bump_logl = evolution.rgb_bump_logl(m[:, 0], z_to_feh(zz[:, 0]))
@@ -228,8 +242,11 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition):
 
 
 def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
-              rng: np.random.Generator | None = None) -> pd.DataFrame:
-    """The whole chain for a batch of validated rows; one output row per input row."""
+              rng: np.random.Generator | None = None, reference=None) -> pd.DataFrame:
+    """The whole chain for a batch of validated rows; one output row per input row.
+
+    ``reference`` is a :class:`~prioritize.lithium.reference.ReferenceBaseline` (see
+    :func:`load_baseline_reference`); None uses the built-in prior."""
     grid = grid or load_grid()
     rng = rng or np.random.default_rng(cfg.scoring.seed)
     n = len(df)
@@ -266,7 +283,8 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
         ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
         m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
                                            convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
-        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition)
+        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
+                         where=model, reference=reference)
         bump = evolution.rgb_bump_logl(mass, z_to_feh(z))
         stage_i = evolution.stage_index(eep, model["logl"], bump, PHASE_EEPS)
         zs = li["z"]
@@ -274,7 +292,7 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
         rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
         r = np.arange(idx.size)
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                               m_cz_ms[r, rep], cfg, composition)
+                               m_cz_ms[r, rep], cfg, composition, reference)
         res = {
             "mass_msun": mass.mean(axis=1), "mass_err_msun": mass.std(axis=1),
             "age_gyr": model["age_myr"].mean(axis=1) / 1e3,
@@ -293,6 +311,7 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
             "lifetime_myr": life, "lifetime_end": end,
             "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
             "dilution_dex": li["dilution"][r, rep],
+            "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
             "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
                                                      columns=["logr"])["logr"],
@@ -309,7 +328,8 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     _adopt(out, params, idx, res, n)
     out["note"] = ""
     out["placement_method"] = np.where(route == "", "", route)
-    out["baseline_source"] = np.where(out["a_li_base"].notna(), "prior (model, not measured)", "")
+    out["baseline_source"] = _scatter(n, idx, res.get("baseline_source"), object)
+    out["baseline_n"] = _scatter(n, idx, res.get("baseline_n"), float)
     model_logg = _scatter(n, idx, res.get("model_logg"), float)
     out["m_planet_min_mjup"] = planet_mass_for_abundance(
         out["a_li_base"], out["a_li_base"] + cfg.thresholds.z_signature * out["a_li_scatter"],
@@ -513,10 +533,24 @@ def _adopt(out, params, idx, res, n):
             out[source_col] = np.where(use_model, "track model", src)
 
 
+def load_baseline_reference(cfg: Config):
+    """The configured reference population (None for the built-in prior)."""
+    if cfg.baseline.source != "reference":
+        return None
+    if not cfg.baseline.reference:
+        raise PrioritizeError("baseline.source = 'reference' needs a table: set baseline.reference "
+                              "in the config or pass --reference FILE")
+    from .lithium.reference import load_reference
+    b = cfg.baseline
+    return load_reference(b.reference, teff_step=b.teff_step, logg_step=b.logg_step,
+                          feh_step=b.feh_step or None, min_count=b.min_count)
+
+
 def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
                progress=None) -> pd.DataFrame:
     """Run the chain over batches and return the ranked table (every input row)."""
     grid = grid or load_grid()
+    reference = load_baseline_reference(cfg)
     size = cfg.run.batch_size
     parts = []
     for b, start in enumerate(range(0, max(len(df), 1), size)):
@@ -524,8 +558,8 @@ def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
         if len(chunk) == 0:
             break
         rng = np.random.default_rng([cfg.scoring.seed, b])
-        parts.append(run_batch(chunk, cfg, grid, rng))
+        parts.append(run_batch(chunk, cfg, grid, rng, reference))
         if progress is not None:
             progress(min(start + size, len(df)), len(df))
-    out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid)
+    out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid, None, reference)
     return score.assign_ranks(out)

@@ -84,3 +84,29 @@ def test_bigger_planet_bigger_signature(table):
     big = run_batch(table, with_overrides(Config(), {"planet.mass_mjup": 10.0})).set_index("star_id")
     assert big.loc["subgiant", "z_enrich"] > small.loc["subgiant", "z_enrich"]
     assert big.loc["subgiant", "lifetime_myr"] >= small.loc["subgiant", "lifetime_myr"]
+
+
+def test_rotation_and_observing_cost_enter_the_priority():
+    """A fast-rotating giant is flagged (v sin i >= 10 km/s, Carlberg et al. 2011) and its
+    odds rise; the priority is the documented product over the hours on target."""
+    rows = pd.DataFrame([
+        {"star_id": "slow", "teff_k": 4800, "teff_k_err": 70, "logg": 2.9, "logg_err": 0.1,
+         "feh": 0.0, "g_mag": 9.0, "bp_rp": 1.15, "vsini_kms": 2.0},
+        {"star_id": "fast", "teff_k": 4800, "teff_k_err": 70, "logg": 2.9, "logg_err": 0.1,
+         "feh": 0.0, "g_mag": 9.0, "bp_rp": 1.15, "vsini_kms": 20.0},
+    ])
+    out = run_batch(validate_catalog(rows), Config()).set_index("star_id")
+    assert bool(out.loc["fast", "rapid_rotator"]) and not bool(out.loc["slow", "rapid_rotator"])
+    assert out.loc["fast", "rot_anomaly_sigma"] > 3
+    assert out.loc["fast", "p_engulfed_rotation"] > out.loc["slow", "p_engulfed_rotation"]
+    assert out.loc["fast", "m_planet_spin_mjup"] > 0
+    # a rotationally broadened line needs more S/N (Cayrel 1988: sigma_EW ∝ sqrt(FWHM))
+    assert out.loc["fast", "line_fwhm_A"] > out.loc["slow", "line_fwhm_A"]
+    assert out.loc["fast", "snr_needed"] > out.loc["slow", "snr_needed"]
+    for star in ("slow", "fast"):
+        r = out.loc[star]
+        np.testing.assert_allclose(r["time_on_target_s"], r["exposure_s"] + r["overhead_s"])
+        expected = (r["p_engulfed_rotation"] * r["lifetime_weight"] * r["p_detect"] * r["p_measured"]
+                    / (r["time_on_target_s"] / 3600.0))
+        np.testing.assert_allclose(r["priority"], expected)
+        assert "Li I 6707.8" in r["lines_to_measure"]

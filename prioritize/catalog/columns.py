@@ -297,6 +297,7 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("feh_source", TEXT, "", "where feh came from (catalog, cluster, default)"),
     _out("baseline_source", TEXT, "", "which lithium baseline relation gave a_li_base"),
     _out("z_enrich_err", FLOAT, "sigma", "spread of z_enrich over the placement samples"),
+    _out("baseline_n", FLOAT, "", "reference stars behind the baseline (0 for the prior)"),
     _out("teff_zams_k", FLOAT, "K", "Teff of the star's track at the zero-age main sequence"),
     _out("a_li_main_sequence", FLOAT, "dex", "prior main-sequence A(Li) before dredge-up dilution"),
     _out("dilution_dex", FLOAT, "dex", "first-dredge-up dilution of the star's own lithium (<= 0)"),
