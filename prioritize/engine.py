@@ -241,6 +241,40 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, refe
     return life, end
 
 
+def signature_at(grid: TrackGrid, mass, z, eep, cfg: Config, reference=None) -> dict:
+    """Enrichment signature of the configured planet at track points (1-D arrays).
+
+    The same physics as :func:`run_batch` applies to one sample per point: envelope,
+    baseline, enrichment, z, and the lifetime following the point's own track.  Used
+    by the detectability map.
+
+    Returns
+    -------
+    dict
+        ``m_cz_msun, a_li_base, a_li_scatter, a_li_enriched, z_enrich, lifetime_myr,
+        lifetime_end, age_myr, logteff, logl, logg`` (arrays of the input length).
+    """
+    mass, z, eep = (np.asarray(x, dtype=float).ravel() for x in (mass, z, eep))
+    composition = planet_composition(cfg)
+    model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logg", "age_myr"])
+    m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
+    m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
+    ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
+    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
+                                       convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
+    li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
+                     where=model, reference=reference)
+    ok = np.isfinite(li["z"])
+    life = np.full(mass.size, np.nan)
+    end = np.full(mass.size, "", dtype=object)
+    if ok.any():
+        life[ok], end[ok] = _lifetimes(grid, mass[ok], z[ok], eep[ok], m_cz_max[ok], m_cz_ms[ok],
+                                       cfg, composition, reference)
+    return {"m_cz_msun": m_cz, "a_li_base": li["a_base"], "a_li_scatter": li["sigma"],
+            "a_li_enriched": li["a_new"], "z_enrich": li["z"], "lifetime_myr": life,
+            "lifetime_end": end, **model}
+
+
 def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
               rng: np.random.Generator | None = None, reference=None) -> pd.DataFrame:
     """The whole chain for a batch of validated rows; one output row per input row.
