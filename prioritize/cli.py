@@ -46,6 +46,17 @@ def _load(catalog: Path, config: Optional[Path], columns: Optional[list[str]], o
         messages
 
 
+def _planet_masses(text: Optional[str]) -> list[float]:
+    """'1,5,10' -> [1.0, 5.0, 10.0]; a clear error for anything else."""
+    if text is None:
+        return []
+    try:
+        return [float(part) for part in text.split(",") if part.strip()]
+    except ValueError:
+        raise PrioritizeError(f"--planet-mass takes numbers separated by commas (e.g. 1,5,10), "
+                              f"got {text!r}") from None
+
+
 def _cluster_context(cfg) -> dict:
     return {k: getattr(cfg.cluster, k) for k in ("age_gyr", "feh", "distance_pc", "ebv")}
 
@@ -76,8 +87,10 @@ def rank(
                                                "(default: <catalog>_ranked.csv here)."),
     config: Optional[Path] = ConfigOpt,
     columns: Optional[list[str]] = ColumnsOpt,
-    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80,
-                                                help="Engulfed planet mass in Jupiter masses."),
+    planet_mass: Optional[str] = typer.Option(None, "--planet-mass",
+                                              help="Engulfed planet mass in Jupiter masses; several "
+                                                   "separated by commas (1,5,10): the first ranks, "
+                                                   "the others add columns."),
     z_threshold: Optional[float] = typer.Option(None, "--z-threshold", min=0.5, max=20,
                                                 help="Significance that counts as a signature."),
     seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed."),
@@ -88,6 +101,9 @@ def rank(
     instrument: Optional[str] = typer.Option(None, "--instrument",
                                              help="Instrument preset (echelle-2m, echelle-4m, "
                                                   "echelle-8m) or a TOML file."),
+    rapid_only: bool = typer.Option(False, "--rapid-only",
+                                    help="Keep only rapid or anomalous rotators in the ranking; the "
+                                         "rest are written with status not_anomalous_rotator."),
 ):
     """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
 
@@ -97,8 +113,12 @@ def rank(
     from .engine import rank_table
     from .report.terminal import status_summary, top_table
 
+    masses = _planet_masses(planet_mass)
     cfg, table, messages = _load(catalog, config, columns, {
-        "planet.mass_mjup": planet_mass, "thresholds.z_signature": z_threshold,
+        "planet.mass_mjup": masses[0] if masses else None,
+        "planet.extra_masses_mjup": masses[1:] if masses else None,
+        "rotation.rapid_only": True if rapid_only else None,
+        "thresholds.z_signature": z_threshold,
         "scoring.seed": seed, "run.top": top, "observing.instrument": instrument,
         "baseline.source": "reference" if reference else None,
         "baseline.reference": str(reference) if reference else None})
@@ -120,7 +140,8 @@ def explain(
     star_id: str = typer.Argument(..., help="The star's id as in the catalog."),
     config: Optional[Path] = ConfigOpt,
     columns: Optional[list[str]] = ColumnsOpt,
-    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80),
+    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80,
+                                                help="Engulfed planet mass in Jupiter masses."),
 ):
     """Show one star's whole chain with intermediate values and sources.
 

@@ -29,7 +29,9 @@ class PlanetConfig:
 
     kind: str = _spec("gas_giant", choices=("gas_giant", "brown_dwarf", "rocky"),
                       doc="composition class of the engulfed body")
-    mass_mjup: float = _spec(1.0, lo=1e-5, hi=80.0, doc="mass in Jupiter masses")
+    mass_mjup: float = _spec(1.0, lo=1e-5, hi=80.0, doc="mass in Jupiter masses (ranks the list)")
+    extra_masses_mjup: tuple = _spec((), lo=1e-5, hi=80.0,
+                                     doc="further planet masses reported as extra columns")
     hydrogen_fraction: float = _spec(0.70, lo=0.0, hi=1.0,
                                      doc="hydrogen mass fraction X_p (Jupiter ~0.70)")
     a_li: float = _spec(3.26, lo=-2.0, hi=4.5, doc="A(Li) of the planet; meteoritic 3.26")
@@ -93,6 +95,7 @@ class RotationConfig:
                              doc="prior odds of a recent engulfment before the rotation evidence")
     rapid_anomaly_sigma: float = _spec(3.0, lo=0.5, hi=50.0,
                                        doc="rotation anomaly (sigma) that counts as anomalous")
+    rapid_only: bool = _spec(False, doc="keep only rapid or anomalous rotators in the ranking")
 
 
 @dataclass(frozen=True)
@@ -157,6 +160,15 @@ def _check_value(section: str, f: dataclasses.Field, value: Any) -> Any:
         if (lo is not None and value < lo) or (hi is not None and value > hi):
             raise ConfigError(f"{key} = {value!r} is outside the allowed range {lo} to {hi}")
         return value
+    if expected is tuple:
+        if not isinstance(value, (list, tuple)) or not all(
+                isinstance(v, (int, float)) and not isinstance(v, bool) for v in value):
+            raise ConfigError(f"{key} must be a list of numbers, got {value!r}")
+        lo, hi = meta.get("lo"), meta.get("hi")
+        bad = [v for v in value if (lo is not None and v < lo) or (hi is not None and v > hi)]
+        if bad:
+            raise ConfigError(f"{key} has {bad} outside the allowed range {lo} to {hi}")
+        return tuple(float(v) for v in value)
     if expected is str:
         if not isinstance(value, str):
             raise ConfigError(f"{key} must be text, got {value!r}")

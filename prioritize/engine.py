@@ -21,7 +21,7 @@ import pandas as pd
 
 from . import exposure, rotation, score, spectra
 from .catalog import status as st
-from .config import Config
+from .config import Config, with_overrides
 from .errors import PrioritizeError, PrioritizeWarning
 from .lithium import baseline, lifetime
 from .constants import M_JUP_MSUN
@@ -34,6 +34,7 @@ from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid,
 
 MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
 PRIOR_SOURCE = "prior (model, not measured)"
+OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
 VSINI_DEFAULT_ERROR_KMS = 1.0    # assumed v sin i error when the catalog gives none (common practice)
@@ -46,6 +47,7 @@ OUTPUT_COLUMNS = [
     "teff_k", "logl_lsun", "radius_rsun", "feh", "m_cz_msun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
     "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight", "m_planet_min_mjup",
+    "z_observed", "z_observed_is_limit", "m_planet_needed_mjup",
     "veq_kms", "veq_expected_kms", "veq_expected_spread_kms", "rot_expect_source",
     "rot_anomaly_sigma", "rapid_rotator", "m_planet_spin_mjup", "spin_li_consistency",
     "p_engulfed_rotation", "p_engulfed",
@@ -347,6 +349,7 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
             "dilution_dex": li["dilution"][r, rep],
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
+            **_other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference),
             "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
                                                      columns=["logr"])["logr"],
         }
@@ -368,6 +371,9 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     out["m_planet_min_mjup"] = planet_mass_for_abundance(
         out["a_li_base"], out["a_li_base"] + cfg.thresholds.z_signature * out["a_li_scatter"],
         out["m_cz_msun"], composition) / M_JUP_MSUN
+    for col in [k for k in res if _is_other_planet_column(k)]:
+        out[col] = _scatter(n, idx, res[col], float)
+    _measured_lithium_columns(out, df, composition)
     _rotation_columns(out, df, params, _scatter(n, idx, res.get("radius_ms_rsun"), float), cfg)
     _observing_columns(out, df, model_logg, cfg)
     weight = score.lifetime_weight(out["lifetime_myr"].to_numpy(), cfg.thresholds.min_lifetime_myr,
@@ -376,6 +382,11 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     out["p_engulfed"] = out["p_engulfed_rotation"] * weight
     out["priority"] = score.detections_per_hour(out["p_engulfed"], out["p_detect"], out["p_measured"],
                                                 out["time_on_target_s"])
+    if cfg.rotation.rapid_only:
+        slow = (status == st.OK) & ~out["rapid_rotator"].to_numpy(bool)
+        status[slow] = st.NOT_ANOMALOUS_ROTATOR
+        out.loc[slow, "note"] = _append(out.loc[slow, "note"].to_numpy(object),
+                                        "left out by the rapid-rotator filter")
     out["status"] = status
     out["note"] = _append(note, out["note"].to_numpy(object))
     out["rank"] = np.nan
@@ -384,7 +395,45 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     clash = [c for c in df.columns if c in out.columns and c not in ("star_id", "status", "note")]
     for c in clash:
         passthrough[f"input_{c}"] = df[c].to_numpy()
-    return pd.concat([out[OUTPUT_COLUMNS], passthrough.reset_index(drop=True)], axis=1)
+    other = [c for c in out.columns if _is_other_planet_column(c)]
+    return pd.concat([out[OUTPUT_COLUMNS + other], passthrough.reset_index(drop=True)], axis=1)
+
+
+def _is_other_planet_column(name: str) -> bool:
+    return name.startswith(OTHER_PLANET_PREFIXES) and name.endswith("mj")
+
+
+def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference):
+    """z, P(z >= threshold) and lifetime for each extra planet mass of the config."""
+    cols = {}
+    r = np.arange(mass.shape[0])
+    for m in cfg.planet.extra_masses_mjup:
+        cfg_m = with_overrides(cfg, {"planet.mass_mjup": m})
+        comp = planet_composition(cfg_m)
+        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg_m, comp,
+                         where=model, reference=reference)
+        life, _ = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
+                             m_cz_ms[r, rep], cfg_m, comp, reference)
+        tag = f"{m:g}mj"
+        cols[f"z_enrich_{tag}"] = np.nanmedian(li["z"], axis=1)
+        cols[f"p_detect_{tag}"] = np.mean(li["z"] >= cfg.thresholds.z_signature, axis=1)
+        cols[f"lifetime_myr_{tag}"] = life
+    return cols
+
+
+def _measured_lithium_columns(out, df, composition):
+    """Where the catalog has A(Li): its excess over the baseline in sigma, and the planet
+    that would explain it (an upper limit gives an upper bound on both)."""
+    a_obs = _column(df, "a_li")
+    err = np.nan_to_num(_column(df, "a_li_err"))
+    limit = (df["a_li_is_limit"].fillna(False).astype(bool).to_numpy() if "a_li_is_limit" in df
+             else np.zeros(len(df), bool))
+    base, scatter = out["a_li_base"].to_numpy(float), out["a_li_scatter"].to_numpy(float)
+    out["z_observed"] = (a_obs - base) / np.hypot(scatter, err)
+    out["z_observed_is_limit"] = np.isfinite(a_obs) & limit
+    needed = planet_mass_for_abundance(base, a_obs, out["m_cz_msun"].to_numpy(float), composition)
+    out["m_planet_needed_mjup"] = np.where(np.isfinite(a_obs) & np.isfinite(base), needed / M_JUP_MSUN,
+                                           np.nan)
 
 
 def _b_v0(df, params):

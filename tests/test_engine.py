@@ -8,6 +8,7 @@ from prioritize.catalog import columns, status as st
 from prioritize.catalog.validate import validate_catalog
 from prioritize.config import Config, with_overrides
 from prioritize.engine import OUTPUT_COLUMNS, rank_table, run_batch
+from prioritize.constants import M_JUP_MSUN
 from prioritize.lithium.enrichment import PlanetComposition, enriched_abundance
 
 
@@ -110,3 +111,64 @@ def test_rotation_and_observing_cost_enter_the_priority():
                     / (r["time_on_target_s"] / 3600.0))
         np.testing.assert_allclose(r["priority"], expected)
         assert "Li I 6707.8" in r["lines_to_measure"]
+
+
+def test_extra_planet_masses_measured_lithium_and_rapid_filter():
+    rows = pd.DataFrame([
+        {"star_id": "sg", "teff_k": 5300, "teff_k_err": 60, "logl_lsun": 0.75, "logl_lsun_err": 0.03,
+         "feh": 0.0, "feh_err": 0.05, "g_mag": 9.5, "bp_rp": 0.95, "a_li": 2.2, "a_li_err": 0.1,
+         "vsini_kms": 1.0},
+        {"star_id": "rg", "teff_k": 4700, "teff_k_err": 60, "logg": 2.6, "logg_err": 0.1,
+         "feh": 0.0, "feh_err": 0.05, "g_mag": 8.0, "bp_rp": 1.2, "a_li": 0.5, "a_li_is_limit": True,
+         "vsini_kms": 15.0},
+    ])
+    cfg = with_overrides(Config(), {"planet.extra_masses_mjup": [5.0, 10.0], "rotation.rapid_only": True})
+    out = run_batch(validate_catalog(rows), cfg).set_index("star_id")
+    # more planet, more lithium: z grows with the planet's mass (SCIENCE.md §2)
+    for star in ("sg", "rg"):
+        z1, z5, z10 = (out.loc[star, c] for c in ("z_enrich", "z_enrich_5mj", "z_enrich_10mj"))
+        assert z1 < z5 < z10
+        assert out.loc[star, "p_detect"] <= out.loc[star, "p_detect_5mj"] <= out.loc[star, "p_detect_10mj"]
+    # measured lithium: z_observed = (A_obs - A_base) / sqrt(scatter^2 + err^2)
+    sg = out.loc["sg"]
+    np.testing.assert_allclose(sg["z_observed"], (2.2 - sg["a_li_base"]) / np.hypot(sg["a_li_scatter"], 0.1))
+    needed = sg["m_planet_needed_mjup"] * M_JUP_MSUN
+    if needed > 0:
+        np.testing.assert_allclose(enriched_abundance(sg["a_li_base"], sg["m_cz_msun"], needed,
+                                                      PlanetComposition()), 2.2, atol=1e-9)
+    assert bool(out.loc["rg", "z_observed_is_limit"]) and not bool(sg["z_observed_is_limit"])
+    # the rapid-rotator filter keeps the 15 km/s giant, leaves the slow subgiant out with a status
+    assert out.loc["rg", "status"] == st.OK
+    assert out.loc["sg", "status"] == st.NOT_ANOMALOUS_ROTATOR
+
+
+def test_zero_input_errors_give_a_certain_answer():
+    """With exact inputs P(z >= threshold) is 0 or 1 and agrees with z itself."""
+    rows = pd.DataFrame([{"star_id": f"s{i}", "mass_msun": m, "mass_msun_err": 0.0, "stage": "subgiant",
+                          "teff_k": t, "teff_k_err": 0.0, "feh": 0.0, "feh_err": 0.0}
+                         for i, (m, t) in enumerate([(1.0, 5500), (1.2, 5600), (1.6, 6000), (1.1, 5200)])])
+    out = run_batch(validate_catalog(rows), Config())
+    assert set(out["p_detect"].unique()) <= {0.0, 1.0}
+    np.testing.assert_array_equal(out["p_detect"] == 1.0, out["z_enrich"] >= Config().thresholds.z_signature)
+    again = run_batch(validate_catalog(rows), Config())
+    pd.testing.assert_frame_equal(out, again)
+
+
+def test_reference_population_sets_the_baseline(tmp_path):
+    """A reference with a known median in the star's bin gives that baseline; a star the
+    reference does not cover falls back to the prior and says so."""
+    rng = np.random.default_rng(3)
+    ref = pd.DataFrame({"teff_k": rng.uniform(4700, 4800, 400), "logg": rng.uniform(2.5, 2.75, 400),
+                        "a_li": rng.normal(1.3, 0.2, 400), "a_li_is_limit": False})
+    path = tmp_path / "ref.csv"
+    ref.to_csv(path, index=False)
+    rows = pd.DataFrame([
+        {"star_id": "in", "mass_msun": 1.2, "mass_msun_err": 0.0, "stage": "lower_giant_branch",
+         "teff_k": 4750, "teff_k_err": 0.0, "logg": 2.6, "logg_err": 0.0, "feh": 0.0},
+        {"star_id": "out", "mass_msun": 1.0, "stage": "main_sequence", "feh": 0.0},
+    ])
+    cfg = with_overrides(Config(), {"baseline.source": "reference", "baseline.reference": str(path)})
+    out = rank_table(validate_catalog(rows), cfg).set_index("star_id")
+    assert out.loc["in", "baseline_source"].startswith("reference")
+    assert abs(out.loc["in", "a_li_base"] - 1.3) < 0.05
+    assert out.loc["out", "baseline_source"] == "prior (no reference coverage)"

@@ -35,6 +35,7 @@ DENSE_MASS_STEP = 0.02         # M_sun; interpolated between grid tracks for pla
 CHI2_LIMIT = 25.0              # a star whose nearest model is > 5 sigma away is "not explained"
 DEFAULT_ERRORS = {"teff_k": 100.0, "logl_lsun": 0.1, "logg": 0.2, "feh": 0.2,
                   "mass_frac": 0.10}  # used (and noted) when the catalog gives no error
+EXACT_FLOOR = {"teff_k": 1e-3, "logg": 1e-6}  # an error of 0 means exact: kept finite for the arithmetic
 FEH_FLOOR_DEX = 0.05           # half the grid's metallicity spacing, added in quadrature
 _SCALE = np.array([0.005, 0.03, 0.1])   # tree coordinates: log Teff, log L (or logg/2), [Fe/H]
 K_NEIGHBOURS = 4096
@@ -95,13 +96,13 @@ def place_by_mass_stage(grid: TrackGrid, mass, mass_err, stage, feh, rng, n_samp
     """Samples for stars with a catalog mass and stage.
 
     Mass nodes are the mid-quantiles of N(mass, mass_err) (10% when no error is
-    given); along the stage, EEP nodes are weighted by the time spent there and, if
+    given; an error of 0 means the mass is exact); along the stage, EEP nodes are weighted by the time spent there and, if
     Teff or logg are known, by their Gaussian likelihood.  Giant-branch stages keep
     only points on the requested side of the track's RGB bump.
     """
     n = len(mass)
     mass = np.asarray(mass, dtype=float)
-    err = np.where(np.isfinite(mass_err) & (np.asarray(mass_err, float) > 0), mass_err,
+    err = np.where(np.isfinite(mass_err), np.maximum(np.asarray(mass_err, float), 0.0),
                    DEFAULT_ERRORS["mass_frac"] * mass)
     q = (np.arange(n_mass_nodes) + 0.5) / n_mass_nodes
     m_nodes = mass[:, None] + err[:, None] * norm.ppf(q)[None, :]
@@ -118,26 +119,31 @@ def place_by_mass_stage(grid: TrackGrid, mass, mass_err, stage, feh, rng, n_samp
     ee = np.repeat(e_nodes[:, None, :], n_mass_nodes, axis=1)
     zz = np.broadcast_to(zc[:, None, None], mm.shape)
     cols = grid.interpolate(mm, zz, ee, columns=["age_myr", "logteff", "logg", "logl"])
-    w = _eep_time_weight(cols["age_myr"])
+    with np.errstate(divide="ignore"):
+        logw = np.log(_eep_time_weight(cols["age_myr"]))
     if teff is not None:
         t_obs = np.asarray(teff, float)[:, None, None]
-        t_err = np.where(np.isfinite(teff_err), teff_err, DEFAULT_ERRORS["teff_k"])[:, None, None]
-        like = np.exp(-0.5 * ((10 ** cols["logteff"] - t_obs) / t_err) ** 2)
-        w = w * np.where(np.isfinite(t_obs), like, 1.0)
+        t_err = np.maximum(np.where(np.isfinite(teff_err), teff_err, DEFAULT_ERRORS["teff_k"]),
+                           EXACT_FLOOR["teff_k"])[:, None, None]
+        chi2 = ((10 ** cols["logteff"] - t_obs) / t_err) ** 2
+        logw = logw - 0.5 * np.where(np.isfinite(t_obs), chi2, 0.0)
     if logg is not None:
         g_obs = np.asarray(logg, float)[:, None, None]
-        g_err = np.where(np.isfinite(logg_err), logg_err, DEFAULT_ERRORS["logg"])[:, None, None]
-        like = np.exp(-0.5 * ((cols["logg"] - g_obs) / g_err) ** 2)
-        w = w * np.where(np.isfinite(g_obs), like, 1.0)
+        g_err = np.maximum(np.where(np.isfinite(logg_err), logg_err, DEFAULT_ERRORS["logg"]),
+                           EXACT_FLOOR["logg"])[:, None, None]
+        chi2 = ((cols["logg"] - g_obs) / g_err) ** 2
+        logw = logw - 0.5 * np.where(np.isfinite(g_obs), chi2, 0.0)
     bump = evolution.rgb_bump_logl(mm, z_to_feh(zz))
     st = evolution.stage_index(ee, cols["logl"], bump, PHASE_EEPS)
     wanted = np.array([evolution.STAGES.index(s) if s in evolution.STAGES else -2 for s in stage])
     giant = np.isin(wanted, (3, 4))
-    w = np.where(giant[:, None, None] & (st != wanted[:, None, None]), 0.0, w)
-    w = np.where(np.isfinite(w), w, 0.0).reshape(n, -1)
+    logw = np.where(giant[:, None, None] & (st != wanted[:, None, None]), -np.inf, logw)
+    logw = np.where(np.isnan(logw), -np.inf, logw).reshape(n, -1)
+    best = logw.max(axis=1, keepdims=True)
+    w = np.where(np.isfinite(best), np.exp(logw - np.where(np.isfinite(best), best, 0.0)), 0.0)
     placed = w.sum(axis=1) > 0
     note = np.full(n, "", dtype=object)
-    note[~np.isfinite(np.asarray(mass_err, float)) | (np.asarray(mass_err, float) <= 0)] = \
+    note[~np.isfinite(np.asarray(mass_err, float))] = \
         "mass error assumed 10%"
     note[clamped] = _join(note[clamped], "[Fe/H] clamped to the grid range")
     note[~placed] = _join(note[~placed], "mass/stage outside the track grid")
