@@ -823,6 +823,8 @@ TRACK_QUALITY_NO_SOLUTION = 3      # no solution and no computed neighbour on bo
 TRACK_QUALITY_STRIDE = 4           # not computed (eep_stride > 1): interpolated along the track
 TRACK_QUALITY_HIT_CORE = 5         # surface zone reaches the inner boundary (values at the boundary)
 TRACK_QUALITY_NOT_APPLICABLE = 6   # remnant or naked helium star (kstar >= 7): NaN
+TRACK_QUALITY_NOT_COMPUTED = 7     # a track table without our envelope columns (old grid file, user table)
+TRACK_QUALITY_SUPPLIED = 8         # envelope values taken from the user's own stellar models
 TRACK_QUALITY_MEANINGS = {
     TRACK_QUALITY_OK: "solar mixing length",
     TRACK_QUALITY_ALPHA_SOLVED: "mixing length solved so the envelope meets the core",
@@ -831,6 +833,8 @@ TRACK_QUALITY_MEANINGS = {
     TRACK_QUALITY_STRIDE: "between computed points (eep_stride); interpolated along the track",
     TRACK_QUALITY_HIT_CORE: "convective envelope reaches the inner boundary",
     TRACK_QUALITY_NOT_APPLICABLE: "no envelope computed for remnants and helium stars",
+    TRACK_QUALITY_NOT_COMPUTED: "not computed: the track table carries no envelope integration",
+    TRACK_QUALITY_SUPPLIED: "supplied by the user's stellar models",
 }
 TRACK_COLUMNS = ("m_cz_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc", "m_li_preserved_msun", "alpha_mlt")
 PROFILE_COLUMNS = ("profile_r_rsun", "profile_rho_gcc", "profile_t_k", "profile_m_msun")
@@ -879,12 +883,51 @@ def _fill_along_track(columns, profiles, quality, fill_codes):
     quality[fill & ~inside & (quality == TRACK_QUALITY_STRIDE)] = TRACK_QUALITY_NO_SOLUTION
 
 
-def rgb_bump_index(mass_msun, core_mass_msun, m_cz_msun, kstar) -> int:
-    """EEP index of the RGB bump: the core reaches the deepest point of first dredge-up.
+def rgb_bump_position(mass_msun, core_mass_msun, m_cz_msun, kstar) -> float:
+    """Fractional track index of the RGB bump: the core reaches the deepest point of first dredge-up.
 
-    The first giant-branch point (kstar 3) where M_core >= min(M - M_cz) over the
-    subgiant and giant branch (kstar 2-3), i.e. where the hydrogen shell reaches
-    the composition discontinuity left by the deepest convective envelope.
+    The deepest mass coordinate mixed by the envelope is
+    m_deep = min(M - M_cz) over the subgiant and giant branch (kstar 2-3); the bump
+    is where the hydrogen shell, i.e. the core mass, reaches it on the giant branch
+    (kstar 3), M_core = m_deep, found by linear interpolation in M_core between
+    the two track points that bracket it.
+
+    Parameters
+    ----------
+    mass_msun, core_mass_msun, m_cz_msun : array_like
+        Along one track (M_sun).
+    kstar : array_like
+        Hurley et al. (2000) phase codes along the track.
+
+    Returns
+    -------
+    float
+        Fractional index into the track, NaN if the core never gets there (no bump,
+        e.g. stars that ignite helium before, above ~2.2 M_sun).  The bump luminosity
+        is very sensitive to m_deep: d log L/d M_core ~ 10 per M_sun on the lower
+        giant branch, so 0.02 M_sun in m_deep moves it by ~0.2 dex.
+
+    References
+    ----------
+    SCIENCE.md §16; Kippenhahn, Weigert & Weiss 2012, ch. 32-33 (first dredge-up,
+    the shell reaching the discontinuity); Christensen-Dalsgaard 2015, MNRAS 453, 666.
+    """
+    mass, core, m_cz, kstar = (np.asarray(a, dtype=float) for a in (mass_msun, core_mass_msun, m_cz_msun, kstar))
+    fdu = np.isin(kstar, (2, 3)) & np.isfinite(m_cz)
+    if not fdu.any():
+        return float("nan")
+    deepest = np.min((mass - m_cz)[fdu])
+    reached = np.flatnonzero((kstar == 3) & (core >= deepest))
+    if not reached.size:
+        return float("nan")
+    i = int(reached[0])
+    if i == 0 or core[i] == deepest:
+        return float(i)
+    return float(i - 1 + np.clip((deepest - core[i - 1]) / (core[i] - core[i - 1]), 0.0, 1.0))
+
+
+def rgb_bump_index(mass_msun, core_mass_msun, m_cz_msun, kstar) -> int:
+    """Index of the first track point at or past the RGB bump (:func:`rgb_bump_position`).
 
     Parameters
     ----------
@@ -896,21 +939,15 @@ def rgb_bump_index(mass_msun, core_mass_msun, m_cz_msun, kstar) -> int:
     Returns
     -------
     int
-        Index into the track, or -1 if the core never gets there (no bump, e.g.
-        stars that ignite helium before, above ~2.2 M_sun).
+        The first giant-branch point where M_core >= min(M - M_cz), or -1 if the
+        core never gets there.
 
     References
     ----------
-    SCIENCE.md §16; Kippenhahn, Weigert & Weiss 2012, ch. 32-33 (first dredge-up,
-    the shell reaching the discontinuity); Christensen-Dalsgaard 2015, MNRAS 453, 666.
+    SCIENCE.md §16; Kippenhahn, Weigert & Weiss 2012, ch. 32-33.
     """
-    mass, core, m_cz, kstar = (np.asarray(a) for a in (mass_msun, core_mass_msun, m_cz_msun, kstar))
-    fdu = np.isin(kstar, (2, 3)) & np.isfinite(m_cz)
-    if not fdu.any():
-        return -1
-    deepest = np.min((mass - m_cz)[fdu])
-    reached = np.flatnonzero((kstar == 3) & (core >= deepest))
-    return int(reached[0]) if reached.size else -1
+    position = rgb_bump_position(mass_msun, core_mass_msun, m_cz_msun, kstar)
+    return -1 if np.isnan(position) else int(np.ceil(position))
 
 
 def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | None = None,
@@ -949,9 +986,11 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
         composition).
     x : float, optional
         Hydrogen mass fraction; default 0.76 - 3 Z.
-    eep_stride : int, optional
+    eep_stride : int or array_like of int, optional
         Compute every k-th point (plus the first and last point of each phase)
-        and interpolate the rest along the track (code 4).
+        and interpolate the rest along the track (code 4).  An array (one stride
+        per track point) sets the stride per phase: point i is computed where
+        i % eep_stride[i] == 0.
     core_radius_rsun : float, optional
         Core radius for the inner boundary up to the giant-branch tip (kstar <= 3),
         R_sun: a degenerate helium core.
@@ -986,8 +1025,11 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     n = arrays["mass_msun"].size
     if any(a.size != n for a in arrays.values()):
         raise ModelRangeError("every track column must have the same length (one value per EEP)")
-    if int(eep_stride) != eep_stride or eep_stride < 1:
-        raise ModelRangeError(f"eep_stride must be a positive integer; got {eep_stride!r}")
+    stride = np.asarray(eep_stride)
+    if (stride.ndim > 1 or (stride.ndim == 1 and stride.size != n) or not np.issubdtype(stride.dtype, np.number)
+            or np.any(stride != np.round(stride)) or np.any(stride < 1)):
+        raise ModelRangeError(f"eep_stride must be a positive integer or one per track point; got {eep_stride!r}")
+    stride = np.broadcast_to(stride.astype(int), (n,))
     mass, radius = arrays["mass_msun"], 10.0 ** arrays["logr"]
     logl, core, kstar = arrays["logl"], arrays["core_mass_msun"], arrays["kstar"].astype(int)
     columns = {name: np.full(n, np.nan) for name in TRACK_COLUMNS}
@@ -997,7 +1039,7 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     usable = (kstar >= 0) & (kstar <= _LAST_ENVELOPE_KSTAR) & np.isfinite(mass + radius + logl) & (mass > 0)
     quality[~usable] = TRACK_QUALITY_NOT_APPLICABLE
     phase_edges = np.flatnonzero(np.diff(kstar) != 0)
-    chosen = usable & ((np.arange(n) % eep_stride == 0) | np.isin(np.arange(n), np.concatenate(
+    chosen = usable & ((np.arange(n) % stride == 0) | np.isin(np.arange(n), np.concatenate(
         [[0, n - 1], phase_edges, phase_edges + 1])))
     with_core = chosen & (kstar >= 2) & np.isfinite(core) & (core > 0) & (core < mass)
     core_radius = np.where(kstar >= 4, helium_burning_core_radius_rsun, core_radius_rsun)
