@@ -16,6 +16,7 @@ import typer
 from . import CAUTION, __version__
 from .console import friendly
 from .errors import PrioritizeError
+from .map_command import map_command
 from .sky.commands import night_command, season_command
 
 app = typer.Typer(
@@ -219,6 +220,7 @@ def demo(
         typer.echo(f"Ranked table written to {out}\n")
 
 
+app.command("map")(map_command)
 app.command("night")(night_command)
 app.command("season")(season_command)
 

@@ -16,20 +16,26 @@ from .errors import PrioritizeError, PrioritizeWarning
 
 @contextlib.contextmanager
 def one_line_errors():
-    """Package errors and warnings become single lines on stderr; errors exit with code 2."""
-    with warnings.catch_warnings(record=True) as caught:
+    """Package errors and warnings become single lines on stderr; errors exit with code 2.
+
+    Package warnings are printed as they happen (nothing is accumulated); other
+    warnings keep their usual display."""
+    previous = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, PrioritizeWarning):
+            typer.echo(f"warning: {message}", err=True)
+        else:
+            previous(message, category, filename, lineno, file, line)
+
+    with warnings.catch_warnings():
         warnings.simplefilter("always", PrioritizeWarning)
+        warnings.showwarning = show
         try:
             yield
         except PrioritizeError as exc:
             typer.echo(f"error: {exc}", err=True)
             raise typer.Exit(code=2) from None
-        finally:
-            for item in caught:
-                if issubclass(item.category, PrioritizeWarning):
-                    typer.echo(f"warning: {item.message}", err=True)
-                else:
-                    warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
 
 
 def friendly(func):

@@ -34,6 +34,7 @@ from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid,
 
 MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
 PRIOR_SOURCE = "prior (model, not measured)"
+MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
@@ -197,7 +198,7 @@ def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, compositi
         sigma = np.where(hit, ref["a_li_scatter"], sigma)
         source = np.where(hit, ref["baseline_source"], "prior (" + ref["baseline_source"].astype(object) + ")")
         count = np.where(hit, ref["baseline_n"], 0)
-    sigma = np.hypot(sigma, cfg.baseline.measurement_error_dex)
+    sigma = np.maximum(np.hypot(sigma, cfg.baseline.measurement_error_dex), MIN_SCATTER_DEX)
     a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup), composition)
     return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_base) / sigma,
             "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution, "source": source,
@@ -282,7 +283,14 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     """The whole chain for a batch of validated rows; one output row per input row.
 
     ``reference`` is a :class:`~prioritize.lithium.reference.ReferenceBaseline` (see
-    :func:`load_baseline_reference`); None uses the built-in prior."""
+    :func:`load_baseline_reference`); None uses the built-in prior.  Missing values
+    propagate as NaN by design, so numpy's floating-point warnings are silenced here;
+    every row's ``status`` and ``note`` say what could not be computed."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        return _run_batch(df, cfg, grid, rng, reference)
+
+
+def _run_batch(df, cfg, grid, rng, reference):
     grid = grid or load_grid()
     rng = rng or np.random.default_rng(cfg.scoring.seed)
     n = len(df)

@@ -32,9 +32,9 @@ class PlanetKind(str, Enum):
 
 def _companions(output: Path) -> tuple[Path, Path]:
     """``map.csv`` -> (``map.png``, ``map_isochrone.csv``); double extensions kept."""
-    from .sky.commands import _companion
+    from .catalog.io import companion_path
 
-    figure = _companion(output, ".png")
+    figure = companion_path(output, ".png")
     stem = figure.with_suffix("")
     return figure, stem.with_name(stem.name + "_isochrone" + output.name[len(stem.name):])
 

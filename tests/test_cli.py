@@ -63,3 +63,31 @@ def test_demo_runs_on_the_bundled_samples(tmp_path):
     assert result.exit_code == 0, result.output
     assert (tmp_path / "cluster_members_ranked.csv").exists()
     assert (tmp_path / "field_stars_ranked.csv").exists()
+
+
+def test_rank_with_several_planets_a_reference_and_the_rapid_filter(catalog, tmp_path):
+    ref = tmp_path / "ref.csv"
+    pd.DataFrame({"Teff": [4700, 4750, 4800] * 10, "logg": [2.6] * 30, "ALi": [1.2] * 30}).to_csv(ref, index=False)
+    out = tmp_path / "ranked.csv"
+    result = runner.invoke(app, ["rank", str(catalog), "-o", str(out), "--planet-mass", "1,5",
+                                 "--reference", str(ref), "--rapid-only", "--instrument", "echelle-8m"])
+    assert result.exit_code == 0, result.output
+    table = pd.read_csv(out)
+    assert {"z_enrich_5mj", "p_detect_5mj", "lifetime_myr_5mj"} <= set(table.columns)
+    assert (table["instrument"].dropna() == "echelle-8m").all()
+    # no rotation data at all: every computed star is left out by the filter, with its status
+    assert set(table["status"]) <= {"not_anomalous_rotator", "invalid_value"}
+    result = runner.invoke(app, ["rank", str(catalog), "--planet-mass", "one", "-o", str(out)])
+    assert result.exit_code == 2 and "--planet-mass takes numbers" in result.output
+
+
+def test_night_plan_from_a_ranked_table(catalog, tmp_path):
+    ranked = tmp_path / "ranked.csv"
+    table = pd.DataFrame({"star_id": ["a", "b"], "ra_deg": [97.4, 150.0], "dec_deg": [12.3, 20.0],
+                          "priority": [2.0, 1.0], "exposure_s": [600.0, 900.0], "status": ["ok", "ok"]})
+    table.to_csv(ranked, index=False)
+    plan = tmp_path / "plan.csv"
+    result = runner.invoke(app, ["night", str(ranked), "--site", "mauna-kea", "--date", "2027-01-15",
+                                 "-o", str(plan)])
+    assert result.exit_code == 0, result.output
+    assert set(pd.read_csv(plan)["star_id"]) == {"a", "b"}

@@ -766,3 +766,14 @@ def _read_sidecar(path: Path) -> dict:
         return json.loads(sidecar.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
         raise CatalogError(f"metadata sidecar is not readable JSON ({exc})", path=str(sidecar)) from exc
+
+
+def companion_path(output: Path, suffix: str) -> Path:
+    """A file written beside ``output``: ``plan.csv`` -> ``plan.png`` (double extensions
+    such as ``.csv.gz`` are removed whole)."""
+    output = Path(output)
+    name = output.name
+    for ext in (".csv.gz", ".tsv.gz"):
+        if name.lower().endswith(ext):
+            return output.with_name(name[: -len(ext)] + suffix)
+    return output.with_suffix(suffix)

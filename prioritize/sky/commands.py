@@ -19,6 +19,7 @@ import typer
 
 from .. import CAUTION
 from ..catalog.status import OK
+from ..catalog.io import companion_path
 from ..console import one_line_errors
 from ..errors import CatalogError, PrioritizeError
 
@@ -83,15 +84,6 @@ def _atomic_write(path: Path, write) -> None:
             write(temporary)
     except OSError as exc:
         raise CatalogError(f"cannot be written: {exc}", path=str(path)) from exc
-
-
-def _companion(output: Path, suffix: str) -> Path:
-    """``plan.csv`` -> ``plan.txt`` / ``plan.png`` (double extensions such as .csv.gz removed)."""
-    name = output.name
-    for ext in (".csv.gz", ".tsv.gz"):
-        if name.lower().endswith(ext):
-            return output.with_name(name[: -len(ext)] + suffix)
-    return output.with_suffix(suffix)
 
 
 def _local(mjd: float, zone) -> str:
@@ -179,13 +171,13 @@ def night_command(
                                        moon_min_sep_deg=moon_min_sep, overhead_s=overhead,
                                        default_exposure_s=exposure, twilight=twilight.value)
             write_table(result, output, meta)
-            _atomic_write(_companion(output, ".txt"),
+            _atomic_write(companion_path(output, ".txt"),
                           lambda p: p.write_text(text + "\n", encoding="utf-8"))
             figure = _night_figure(plan, the_site, numbers["ra_deg"][keep], numbers["dec_deg"][keep],
                                    airmass_max)
-            _atomic_write(_companion(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
-            typer.echo(f"wrote {output}, {_companion(output, '.txt').name}, "
-                       f"{_companion(output, '.png').name}")
+            _atomic_write(companion_path(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
+            typer.echo(f"wrote {output}, {companion_path(output, '.txt').name}, "
+                       f"{companion_path(output, '.png').name}")
 
 
 def _night_table(table, priority, exposure_s, keep, plan, site, scheduled, status_not_ok):
@@ -406,8 +398,8 @@ def season_command(
             write_table(result, output, meta)
             priority = _numeric(table, priority_column) if priority_column in table.columns else None
             figure = _season_figure(result, season, the_site, first, last, airmass_max, priority)
-            _atomic_write(_companion(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
-            typer.echo(f"wrote {output}, {_companion(output, '.png').name}")
+            _atomic_write(companion_path(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
+            typer.echo(f"wrote {output}, {companion_path(output, '.png').name}")
 
 
 def _season_figure(result, season, site, first, last, airmass_max, priority):
