@@ -169,6 +169,18 @@ def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
     return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
 
 
+def _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition, reference):
+    """Envelope now, deepest so far and on the main sequence, and the lithium at points."""
+    m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
+    m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
+    ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
+    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
+                                       convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
+    li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
+                     where=model, reference=reference)
+    return m_cz, m_cz_max, m_cz_ms, li
+
+
 def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition, where=None,
                 reference=None):
     """Baseline, enrichment and significance at track points (any shape).
@@ -260,13 +272,8 @@ def signature_at(grid: TrackGrid, mass, z, eep, cfg: Config, reference=None) -> 
     mass, z, eep = (np.asarray(x, dtype=float).ravel() for x in (mass, z, eep))
     composition = planet_composition(cfg)
     model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logg", "age_myr"])
-    m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
-    m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
-    ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
-    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
-                                       convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
-    li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
-                     where=model, reference=reference)
+    m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition,
+                                                        reference)
     ok = np.isfinite(li["z"])
     life = np.full(mass.size, np.nan)
     end = np.full(mass.size, "", dtype=object)
@@ -322,13 +329,8 @@ def _run_batch(df, cfg, grid, rng, reference):
         shape = (idx.size, s)
         mass, z, eep = mass.reshape(shape), z.reshape(shape), eep.reshape(shape)
         model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "logg", "age_myr"])
-        m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
-        m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
-        ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
-        m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
-                                           convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
-        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
-                         where=model, reference=reference)
+        m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg,
+                                                            composition, reference)
         bump = evolution.rgb_bump_logl(mass, z_to_feh(z))
         stage_i = evolution.stage_index(eep, model["logl"], bump, PHASE_EEPS)
         zs = li["z"]

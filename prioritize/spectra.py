@@ -12,7 +12,7 @@ Contents
   non-LTE grid; :func:`ew_model_valid` says where the fit holds.
 - :func:`curve_of_growth_slope`, :func:`a_li_error_from_ew_error` -- from an EW error
   to an abundance error.
-- :func:`line_fwhm_angstrom`, :func:`rotational_fwhm_factor` -- the observed width of
+- :func:`line_fwhm_angstrom` -- the observed width of
   the Li feature.
 - :func:`sigma_ew_mA`, :func:`snr_needed` -- the Cayrel (1988) EW error and its inverse.
 - :data:`DIAGNOSTIC_LINES`, :func:`lines_to_measure` -- the lines and features worth
@@ -31,6 +31,7 @@ import numpy as np
 
 from .constants import K_B_CGS
 from .errors import PrioritizeError
+from .rotation import rotational_fwhm_angstrom
 
 if TYPE_CHECKING:
     from .instruments import Instrument
@@ -298,39 +299,6 @@ def a_li_error_from_ew_error(sigma_ew_mA, ew_mA, cog_slope=1.0):
     return math.log10(math.e) * sigma_ew_mA / (ew_mA * cog_slope)
 
 
-def rotational_fwhm_factor(limb_darkening=DEFAULT_LIMB_DARKENING):
-    """FWHM of the rotational broadening kernel in units of lambda v sin i / c.
-
-    Gray's kernel, with x = dlambda / dlambda_L and dlambda_L = lambda v sin i / c:
-    G(x) proportional to 2 (1 - eps) sqrt(1 - x^2) + (pi eps / 2)(1 - x^2).
-    Setting G(x) = G(0)/2 and u = sqrt(1 - x^2) gives a u^2 + b u - (a + b)/2 = 0 with
-    a = pi eps / 2, b = 2 (1 - eps); the FWHM is 2 sqrt(1 - u^2).
-    Values: 1.732 for eps = 0, 1.559 for eps = 0.6, 1.414 for eps = 1.
-
-    Parameters
-    ----------
-    limb_darkening : float or array_like
-        Linear limb-darkening coefficient eps, 0 to 1.
-
-    Returns
-    -------
-    numpy.ndarray
-        Dimensionless factor.
-
-    References
-    ----------
-    Gray D. F., *The Observation and Analysis of Stellar Photospheres*, 3rd ed.,
-    ch. 18, eq. 18.14.
-    """
-    eps = np.asarray(limb_darkening, dtype=float)
-    _require(~((eps < 0) | (eps > 1)), "rotational_fwhm_factor: limb_darkening must lie in 0 to 1")
-    a = math.pi * eps / 2.0
-    b = 2.0 * (1.0 - eps)
-    c = (a + b) / 2.0
-    u = 2.0 * c / (b + np.sqrt(b**2 + 4.0 * a * c))    # root of a u^2 + b u - c = 0, stable at a = 0
-    return 2.0 * np.sqrt(1.0 - u**2)
-
-
 def _doublet_fwhm(separation_a: float, weights: tuple[float, float]) -> float:
     """FWHM of the Gaussian with the same second moment as two lines of given weights."""
     w1, w2 = weights
@@ -353,7 +321,7 @@ def line_fwhm_angstrom(resolving_power, teff, vsini_kms, wavelength=LI6708_WAVEL
     FWHM^2 = (lambda/R)^2 + FWHM_D^2 + FWHM_rot^2 + FWHM_intrinsic^2, with
     FWHM_D = 2 sqrt(ln 2) (lambda/c) sqrt(2 k T / m + xi^2) (Gaussian Doppler core of
     the atom of mass m with microturbulence xi) and
-    FWHM_rot = f(eps) lambda v sin i / c (:func:`rotational_fwhm_factor`, 1.56 for
+    FWHM_rot = f(eps) lambda v sin i / c (:func:`prioritize.rotation.rotational_fwhm_angstrom`, 1.56 for
     eps = 0.6).  Adding widths in quadrature is exact for Gaussians only; the
     rotational kernel is flatter, so for v sin i >> other widths the estimate is a
     planning approximation good to ~10%.  The default intrinsic width stands for the
@@ -397,7 +365,7 @@ def line_fwhm_angstrom(resolving_power, teff, vsini_kms, wavelength=LI6708_WAVEL
     instrumental = wavelength / resolving_power
     doppler_kms = np.sqrt(2.0 * K_B_CGS * teff / (atomic_mass_u * AMU_G) / 1e10 + microturbulence_kms**2)
     thermal = 2.0 * math.sqrt(math.log(2.0)) * wavelength * doppler_kms / C_KMS
-    rotational = rotational_fwhm_factor(limb_darkening) * wavelength * vsini_kms / C_KMS
+    rotational = rotational_fwhm_angstrom(vsini_kms, wavelength, limb_darkening)
     return np.sqrt(instrumental**2 + thermal**2 + rotational**2 + intrinsic_fwhm**2)
 
 

@@ -18,7 +18,6 @@ import warnings
 
 import numpy as np
 import pytest
-from scipy.optimize import brentq
 
 from prioritize import spectra
 from prioritize.errors import PrioritizeError
@@ -30,7 +29,6 @@ LI6104_TABLE_TOL_DEX = 0.10     # SCIENCE.md §9 EW(6104) values
 LI6104_ROUND_TRIP_TOL_DEX = 0.10
 A_ERROR_REL_TOL = 0.15          # linear error propagation vs finite differences through breidablik
 CAYREL_REL_TOL = 0.01           # SCIENCE.md §8 table is rounded to 3 digits; 1% as asked
-ROTATION_FACTOR_TOL = 1e-8      # closed form vs numerical root of the same kernel
 
 LI6708_VACUUM_A = 6709.659      # breidablik's line centre (670.9659 nm)
 LI6104_VACUUM_A = 6105.298      # breidablik's line centre (610.5298 nm)
@@ -154,20 +152,6 @@ def test_abundance_error_matches_breidablik_finite_difference(rew):
         assert ours == pytest.approx((upper - lower) / 2.0, rel=A_ERROR_REL_TOL)
 
 
-@pytest.mark.parametrize("eps", [0.0, 0.3, 0.6, 1.0])
-def test_rotational_fwhm_factor_against_numerical_kernel(eps):
-    """Half maximum of Gray's kernel found by root finding (Gray eq. 18.14)."""
-    def kernel(x):
-        return 2.0 * (1.0 - eps) * math.sqrt(1.0 - x * x) + 0.5 * math.pi * eps * (1.0 - x * x)
-    half = brentq(lambda x: kernel(x) - kernel(0.0) / 2.0, 0.0, 1.0, xtol=1e-14)
-    assert float(spectra.rotational_fwhm_factor(eps)) == pytest.approx(2.0 * half, abs=ROTATION_FACTOR_TOL)
-
-
-def test_rotational_factor_without_limb_darkening_is_sqrt3():
-    # semicircle kernel sqrt(1 - x^2) is at half maximum at x = sqrt(3)/2 (analytic)
-    assert float(spectra.rotational_fwhm_factor(0.0)) == pytest.approx(math.sqrt(3.0), rel=1e-12)
-
-
 def test_line_fwhm_components():
     # instrument only: FWHM = lambda / R
     only_instrument = spectra.line_fwhm_angstrom(50000, 1e-6, 0.0, intrinsic_fwhm=0.0,
@@ -227,7 +211,7 @@ def test_bad_inputs_raise_package_errors():
     with pytest.raises(PrioritizeError, match="snr"):
         spectra.sigma_ew_mA(0.0, 0.2, 0.05)
     with pytest.raises(PrioritizeError, match="limb_darkening"):
-        spectra.rotational_fwhm_factor(1.5)
+        spectra.line_fwhm_angstrom(50000, 5000.0, 10.0, limb_darkening=1.5)
     with pytest.raises(PrioritizeError, match="ew_mA"):
         spectra.a_li_error_from_ew_error(1.0, 0.0)
     # missing values propagate as NaN instead of raising
