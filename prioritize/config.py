@@ -37,6 +37,8 @@ class PlanetConfig:
     a_li: float = _spec(3.26, lo=-2.0, hi=4.5, doc="A(Li) of the planet; meteoritic 3.26")
     li_mass_fraction: float = _spec(1.5e-6, lo=0.0, hi=1e-3,
                                     doc="Li mass fraction for rocky bodies (CI chondrite ~1.5e-6)")
+    deposition: str = _spec("full", choices=("full", "ram-pressure", "virial"),
+                            doc="where the planet's material ends up, for the ranking (SCIENCE.md §12)")
 
 
 @dataclass(frozen=True)

@@ -24,16 +24,23 @@ from .catalog import status as st
 from .config import Config, with_overrides
 from .errors import PrioritizeError, PrioritizeWarning
 from .lithium import baseline, lifetime
-from .constants import M_JUP_MSUN
+from .constants import M_JUP_MSUN, M_SUN_G, R_SUN_CM
 from .lithium.enrichment import (PlanetComposition, enriched_abundance, mjup_to_msun,
                                  planet_mass_for_abundance)
 from .stars import evolution, placement
 from .instruments import load_instrument
 from .stars.photometry import derive_stellar_parameters, teff_from_b_v_dwarf
-from .stars.tracks import PHASE_EEPS, TrackGrid, convective_envelope, load_grid, z_to_feh
+from .lithium import burning, deposition
+from .stars.tracks import (PHASE_EEPS, TrackGrid, convective_envelope, envelope_profile, load_grid,
+                           z_to_feh)
 
 MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
 PRIOR_SOURCE = "prior (model, not measured)"
+ENVELOPE_OUTPUT_COLUMNS = ("t_bcz_k", "rho_bcz_gcc", "r_bcz_rsun", "m_li_preserved_msun",
+                           "envelope_quality")
+DEPOSITION_COLUMNS = ("deposited_fraction_full", "deposited_fraction_ram_pressure",
+                      "deposited_fraction_virial", "disruption_radius_ram_rsun",
+                      "disruption_radius_virial_rsun")
 MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
@@ -46,6 +53,10 @@ OUTPUT_COLUMNS = [
     "star_id", "rank", "priority", "status", "note",
     "mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "stage", "eep",
     "teff_k", "logl_lsun", "radius_rsun", "feh", "m_cz_msun",
+    "t_bcz_k", "rho_bcz_gcc", "r_bcz_rsun", "m_li_preserved_msun", "envelope_quality",
+    "li_burning_timescale_myr", "deposition_scenario", "deposited_fraction_full",
+    "deposited_fraction_ram_pressure", "deposited_fraction_virial", "disruption_radius_ram_rsun",
+    "disruption_radius_virial_rsun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
     "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight", "m_planet_min_mjup",
     "z_observed", "z_observed_is_limit", "m_planet_needed_mjup",
@@ -169,7 +180,64 @@ def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
     return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
 
 
-def _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition, reference):
+def _li_preserving_mass(grid, mass, z):
+    """Mass above the 2.5 MK isotherm at the end of the main sequence (the layer whose
+    lithium survives to first dredge-up), from the grid's envelope integration; the
+    interim 2% of the mass where the grid has none."""
+    tams = np.zeros(np.shape(mass)) + PHASE_EEPS["main_sequence"][1] - 1
+    from_grid = convective_envelope(grid, mass, z, tams)["m_li_preserved_msun"]
+    return np.where(np.isfinite(from_grid) & (from_grid > 0), from_grid,
+                    baseline.li_preserving_mass_interim(mass))
+
+
+def _surface_burning_time_yr(grid, mass, z, eep, m_cz):
+    """e-folding time of surface lithium (SCIENCE.md §19) at track points; inf where the
+    grid has no convective base or the base is too cool to burn."""
+    env = convective_envelope(grid, mass, z, eep)
+    current = grid.interpolate(mass, z, eep, columns=["mass_msun"])["mass_msun"]
+    ok = (np.isfinite(env["t_bcz_k"]) & (env["t_bcz_k"] > 0) & np.isfinite(env["rho_bcz_gcc"])
+          & (env["rho_bcz_gcc"] > 0) & (env["r_bcz_rsun"] > 0) & (m_cz > 0) & (m_cz < current))
+    tau = np.full(np.shape(ok), np.inf)
+    if ok.any():
+        tau[ok] = burning.surface_li_timescale_yr(env["t_bcz_k"][ok], env["rho_bcz_gcc"][ok],
+                                                  env["r_bcz_rsun"][ok], m_cz[ok], current[ok])
+    return tau
+
+
+def _deposition(grid, mass, z, eep, cfg):
+    """Where the configured planet dissolves, for every scenario (SCIENCE.md §12).
+
+    Returns the columns of :func:`deposition.deposition_columns` (shape of ``mass``) and
+    the fraction the ranking uses (config ``planet.deposition``); the fraction is 1
+    where the grid has no envelope profile or the planet is outside the radius laws."""
+    shape = np.shape(mass)
+    prof = envelope_profile(grid, mass, z, eep)
+    current = grid.interpolate(mass, z, eep, columns=["mass_msun"])["mass_msun"]
+    r_cm = prof["r_rsun"] * R_SUN_CM
+    shell = 4.0 * np.pi * r_cm ** 2 * prof["rho_gcc"]
+    above = np.concatenate([np.zeros(shape + (1,)),
+                            np.cumsum(0.5 * (shell[..., 1:] + shell[..., :-1]) * -np.diff(r_cm, axis=-1),
+                                      axis=-1)], axis=-1) / M_SUN_G
+    m_r = current[..., None] - above
+    ok = np.all(np.isfinite(prof["rho_gcc"]) & np.isfinite(prof["t_k"]) & (m_r > 0), axis=-1)
+    names = ["deposited_fraction_full", "deposited_fraction_ram_pressure", "deposited_fraction_virial",
+             "disruption_radius_ram_rsun", "disruption_radius_virial_rsun"]
+    cols = {k: np.full(shape, np.nan) for k in names}
+    if ok.any():
+        try:
+            got = deposition.deposition_columns(cfg.planet.mass_mjup, cfg.planet.kind,
+                                                prof["r_rsun"][ok], prof["rho_gcc"][ok],
+                                                prof["t_k"][ok], m_r[ok])
+        except PrioritizeError:  # e.g. a planet mass outside the radius laws
+            got = {}
+        for k, v in got.items():
+            cols[k][ok] = v
+    key = "deposited_fraction_" + cfg.planet.deposition.replace("-", "_")
+    used = np.where(np.isfinite(cols[key]), cols[key], 1.0)
+    return cols, used
+
+
+def _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition, reference, deposit=1.0):
     """Envelope now, deepest so far and on the main sequence, and the lithium at points."""
     m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
     m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
@@ -177,12 +245,12 @@ def _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition, reference
     m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
                                        convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
     li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
-                     where=model, reference=reference)
+                     where=model, reference=reference, deposit=deposit)
     return m_cz, m_cz_max, m_cz_ms, li
 
 
 def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition, where=None,
-                reference=None):
+                reference=None, deposit=1.0, li_survival=1.0):
     """Baseline, enrichment and significance at track points (any shape).
 
     ``m_mix`` is the envelope mass the planet is mixed into, ``m_cz_max`` the deepest
@@ -195,7 +263,7 @@ def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, compositi
     zams = grid.interpolate(mass, z, zeros, columns=["logteff"])
     tams = grid.interpolate(mass, z, zeros + PHASE_EEPS["main_sequence"][1], columns=["age_myr"])
     teff_zams = 10 ** zams["logteff"]
-    m_pres = np.fmax(baseline.li_preserving_mass_interim(mass), m_cz_ms)
+    m_pres = np.fmax(_li_preserving_mass(grid, mass, z), m_cz_ms)
     a_ms = baseline.main_sequence_lithium(teff_zams, np.minimum(age_myr, tams["age_myr"]) / 1e3)
     dilution = baseline.dredge_up_dilution(m_cz_max, m_pres)
     a_base = np.maximum(a_ms + dilution, baseline.A_LI_FLOOR)
@@ -211,18 +279,28 @@ def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, compositi
         source = np.where(hit, ref["baseline_source"], "prior (" + ref["baseline_source"].astype(object) + ")")
         count = np.where(hit, ref["baseline_n"], 0)
     sigma = np.maximum(np.hypot(sigma, cfg.baseline.measurement_error_dex), MIN_SCATTER_DEX)
-    a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup), composition)
+    a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup) * deposit, composition,
+                               li_survival=li_survival)
     return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_base) / sigma,
             "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution, "source": source,
             "count": count}
 
 
-def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, reference=None):
-    """Lifetime of the signature following each (mass, z) track from ``eep``."""
+def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, reference=None,
+               deposit=1.0):
+    """Lifetime of the signature following each (mass, z) track from ``eep``.
+
+    Along the future track the planet's lithium is diluted into the deepest envelope
+    reached since engulfment and burnt at the base of the envelope: the surviving
+    fraction is exp(-∫ dt / τ_surf) (SCIENCE.md §19).  The signature ends by
+    ``burning`` when less than half of the planet's lithium survives at the
+    threshold crossing, else by ``dilution``; or at the RGB bump or the track's end."""
     n = mass.size
     life = np.full(n, np.nan)
     end = np.full(n, "", dtype=object)
     nodes = np.asarray(grid.eeps, dtype=float)
+    deposit = np.broadcast_to(np.asarray(deposit, dtype=float), (n,))
+    bump_eep, bump_logl = evolution.rgb_bump(grid, mass, z)
     gb0, gb1 = PHASE_EEPS["giant_branch"]
     on_gb = (nodes >= gb0) & (nodes < gb1)
     for start in range(0, n, LIFETIME_CHUNK):
@@ -239,20 +317,32 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, refe
         # the planet's lithium stays in the deepest envelope reached since engulfment
         m_mix = np.fmax.accumulate(m_cz, axis=1)
         m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
-        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, m_cz_ms[sl, None], cfg,
-                         composition, where=cols, reference=reference)
-        z_along = np.where(ok, li["z"], np.nan)
+        tau_myr = _surface_burning_time_yr(grid, mm, zb, eb, m_mix) / 1e6
         age = np.where(ok, cols["age_myr"], np.nan)
-        bump_logl = evolution.rgb_bump_logl(m[:, 0], z_to_feh(zz[:, 0]))
+        rate = np.where(ok, 1.0 / tau_myr, 0.0)
+        burnt = np.concatenate([np.zeros((rate.shape[0], 1)),
+                                np.cumsum(0.5 * (rate[:, 1:] + rate[:, :-1])
+                                          * np.nan_to_num(np.diff(age, axis=1)), axis=1)], axis=1)
+        survival = np.exp(-burnt)
+        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, m_cz_ms[sl, None], cfg,
+                         composition, where=cols, reference=reference, deposit=deposit[sl, None],
+                         li_survival=survival)
+        z_along = np.where(ok, li["z"], np.nan)
         track = grid.interpolate(mm[:, :1] + 0 * nodes, zb[:, :1] + 0 * nodes,
                                  np.broadcast_to(nodes, (mm.shape[0], nodes.size)),
                                  columns=["logl", "age_myr"])
-        reached = on_gb[None, :] & (track["logl"] >= bump_logl[:, None])
+        reached = on_gb[None, :] & (track["logl"] >= bump_logl[sl, None])
         has = reached.any(axis=1)
         bump_age = np.where(has, track["age_myr"][np.arange(has.size), reached.argmax(axis=1)],
                             np.nan)
         life[sl], end[sl] = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature,
                                                         bump_age)
+        # which process dominated at the crossing: burning if < half the planet's Li survives
+        below = np.isfinite(z_along) & (z_along < cfg.thresholds.z_signature)
+        below[:, 0] = False
+        j = below.argmax(axis=1)
+        burnt_out = survival[np.arange(j.size), j] < 0.5
+        end[sl] = np.where((end[sl] == lifetime.END_DILUTION) & burnt_out, lifetime.END_BURNING, end[sl])
     return life, end
 
 
@@ -329,16 +419,19 @@ def _run_batch(df, cfg, grid, rng, reference):
         shape = (idx.size, s)
         mass, z, eep = mass.reshape(shape), z.reshape(shape), eep.reshape(shape)
         model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "logg", "age_myr"])
+        dep_cols, deposit = _deposition(grid, mass, z, eep, cfg)
         m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg,
-                                                            composition, reference)
-        bump = evolution.rgb_bump_logl(mass, z_to_feh(z))
-        stage_i = evolution.stage_index(eep, model["logl"], bump, PHASE_EEPS)
+                                                            composition, reference, deposit)
+        stage_i = evolution.stage_index(eep, model["logl"], evolution.rgb_bump(grid, mass, z)[1],
+                                        PHASE_EEPS)
         zs = li["z"]
         z_med = np.nanmedian(zs, axis=1)
         rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
         r = np.arange(idx.size)
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                               m_cz_ms[r, rep], cfg, composition, reference)
+                               m_cz_ms[r, rep], cfg, composition, reference, deposit[r, rep])
+        env = convective_envelope(grid, mass[r, rep], z[r, rep], eep[r, rep])
+        tau = _surface_burning_time_yr(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz[r, rep])
         res = {
             "mass_msun": mass.mean(axis=1), "mass_err_msun": mass.std(axis=1),
             "age_gyr": model["age_myr"].mean(axis=1) / 1e3,
@@ -359,6 +452,9 @@ def _run_batch(df, cfg, grid, rng, reference):
             "dilution_dex": li["dilution"][r, rep],
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
+            **{k: env[k] for k in ENVELOPE_OUTPUT_COLUMNS},
+            "li_burning_timescale_myr": tau / 1e6,
+            **{k: v[r, rep] for k, v in dep_cols.items()},
             **_other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference),
             "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
                                                      columns=["logr"])["logr"],
@@ -371,6 +467,7 @@ def _run_batch(df, cfg, grid, rng, reference):
         out[col] = _scatter(n, idx, res.get(col), object)
     out["delta_a_li"] = out["a_li_enriched"] - out["a_li_base"]
     out["m_planet_msun"] = np.where(out["z_enrich"].notna(), mjup_to_msun(cfg.planet.mass_mjup), np.nan)
+    out["deposition_scenario"] = np.where(out["z_enrich"].notna(), cfg.planet.deposition, "")
     out["chi2_best"] = chi2
     _adopt(out, params, idx, res, n)
     out["note"] = ""
@@ -381,6 +478,8 @@ def _run_batch(df, cfg, grid, rng, reference):
     out["m_planet_min_mjup"] = planet_mass_for_abundance(
         out["a_li_base"], out["a_li_base"] + cfg.thresholds.z_signature * out["a_li_scatter"],
         out["m_cz_msun"], composition) / M_JUP_MSUN
+    for col in (*ENVELOPE_OUTPUT_COLUMNS, "li_burning_timescale_myr", *DEPOSITION_COLUMNS):
+        out[col] = _scatter(n, idx, res.get(col), float)
     for col in [k for k in res if _is_other_planet_column(k)]:
         out[col] = _scatter(n, idx, res[col], float)
     _measured_lithium_columns(out, df, composition)
@@ -414,16 +513,18 @@ def _is_other_planet_column(name: str) -> bool:
 
 
 def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference):
-    """z, P(z >= threshold) and lifetime for each extra planet mass of the config."""
+    """z, P(z >= threshold) and lifetime for each extra planet mass of the config (each
+    with its own disruption depth)."""
     cols = {}
     r = np.arange(mass.shape[0])
     for m in cfg.planet.extra_masses_mjup:
         cfg_m = with_overrides(cfg, {"planet.mass_mjup": m})
         comp = planet_composition(cfg_m)
+        _, dep = _deposition(grid, mass, z, eep, cfg_m)
         li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg_m, comp,
-                         where=model, reference=reference)
+                         where=model, reference=reference, deposit=dep)
         life, _ = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                             m_cz_ms[r, rep], cfg_m, comp, reference)
+                             m_cz_ms[r, rep], cfg_m, comp, reference, dep[r, rep])
         tag = f"{m:g}mj"
         cols[f"z_enrich_{tag}"] = np.nanmedian(li["z"], axis=1)
         cols[f"p_detect_{tag}"] = np.mean(li["z"] >= cfg.thresholds.z_signature, axis=1)

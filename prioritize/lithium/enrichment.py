@@ -60,7 +60,7 @@ class PlanetComposition:
 
 
 def enriched_abundance(a_star, m_cz_msun, m_planet_msun, composition: PlanetComposition,
-                       x_star=0.70):
+                       x_star=0.70, li_survival=1.0):
     """A(Li) of the envelope after the planet is fully mixed into it.
 
     Parameters
@@ -74,6 +74,8 @@ def enriched_abundance(a_star, m_cz_msun, m_planet_msun, composition: PlanetComp
     composition : PlanetComposition
     x_star : array_like
         Hydrogen mass fraction of the stellar envelope.
+    li_survival : array_like
+        Fraction of the planet's lithium atoms not yet burnt (1 right after mixing).
 
     Returns
     -------
@@ -89,7 +91,7 @@ def enriched_abundance(a_star, m_cz_msun, m_planet_msun, composition: PlanetComp
     n_li_star = n_h_star * 10.0 ** (np.asarray(a_star, dtype=float) - 12.0)
     m_p = np.asarray(m_planet_msun, dtype=float)
     n_h = n_h_star + composition.h_atoms_per_msun * m_p
-    n_li = n_li_star + composition.li_atoms_per_msun * m_p
+    n_li = n_li_star + composition.li_atoms_per_msun * m_p * np.asarray(li_survival, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(m_cz > 0, 12.0 + np.log10(n_li / n_h), np.nan)
 

@@ -5,6 +5,8 @@ lithium stays in the region it was mixed into and is diluted further as the
 convective envelope deepens.  The signature ends at the first of
 
 - ``dilution``: z(t) = (A_new(t) - A_base(t)) / sigma drops below the threshold,
+- ``burning``: the same, when most of the planet's lithium has been destroyed at the
+  base of the envelope by then (the caller decides; see ``engine._lifetimes``),
 - ``rgb_bump``: the star reaches the RGB bump, after which thermohaline mixing
   destroys surface lithium (Charbonnel & Zahn 2007, A&A 467, L15; SCIENCE.md §16),
 - ``end_of_track``: the track ends (end of core-helium burning) with the signature
@@ -21,6 +23,7 @@ import numpy as np
 END_BELOW = "below_threshold"
 END_PAST_BUMP = "past_rgb_bump"
 END_DILUTION = "dilution"
+END_BURNING = "burning"
 END_BUMP = "rgb_bump"
 END_TRACK = "end_of_track"
 

@@ -13,8 +13,9 @@ stage names (:data:`prioritize.catalog.status.STAGES`):
   half of the branch when the track has no bump)
 - ``red_clump``: core-helium burning
 
-RGB bump (interim, until the envelope integration gives it from the deepest
-penetration of the envelope, SCIENCE.md §16): luminosity of the bump interpolated in
+RGB bump: :func:`rgb_bump` takes it from the grid's envelope integration (the deepest
+penetration of the envelope, SCIENCE.md §16).  For grids without envelopes, the
+interim :func:`rgb_bump_logl` gives the luminosity of the bump interpolated in
 initial mass from the approximate solar-metallicity values of SCIENCE.md §14
 (log L = 1.4, 1.5, 1.65, 1.9 at 0.8, 1.0, 1.5, 2.0 M_sun; from memory) and shifted
 by -0.35 dex per dex of [Fe/H] (the bump is fainter in metal-rich stars;
@@ -102,3 +103,20 @@ def stage_eep_range(stage: str, phase_eeps):
         "red_clump": phase_eeps["core_he_burning"],
     }
     return ranges[stage]
+
+
+def rgb_bump(grid, mass, z):
+    """RGB bump of each (initial mass, Z) track: (fractional EEP, log L/L_sun).
+
+    From the grid's envelope integration where the grid carries a bump (SCIENCE.md §16:
+    the core reaches the deepest point of first dredge-up); there, a track without a
+    bump (helium ignites first) gives NaN.  A grid without envelopes falls back to the
+    interim luminosity of :func:`rgb_bump_logl` (EEP NaN)."""
+    from .tracks import BUMP_COLUMN, rgb_bump_eep, z_to_feh
+
+    mass, z = np.broadcast_arrays(np.asarray(mass, dtype=float), np.asarray(z, dtype=float))
+    if BUMP_COLUMN not in grid.data:
+        return np.full(mass.shape, np.nan), rgb_bump_logl(mass, z_to_feh(z))
+    eep = rgb_bump_eep(grid, mass, z)
+    logl = grid.interpolate(mass, z, np.where(np.isfinite(eep), eep, 0.0), columns=["logl"])["logl"]
+    return eep, np.where(np.isfinite(eep), logl, np.nan)

@@ -133,7 +133,7 @@ def place_by_mass_stage(grid: TrackGrid, mass, mass_err, stage, feh, rng, n_samp
                            EXACT_FLOOR["logg"])[:, None, None]
         chi2 = ((cols["logg"] - g_obs) / g_err) ** 2
         logw = logw - 0.5 * np.where(np.isfinite(g_obs), chi2, 0.0)
-    bump = evolution.rgb_bump_logl(mm, z_to_feh(zz))
+    bump = evolution.rgb_bump(grid, mm, zz)[1]
     st = evolution.stage_index(ee, cols["logl"], bump, PHASE_EEPS)
     wanted = np.array([evolution.STAGES.index(s) if s in evolution.STAGES else -2 for s in stage])
     giant = np.isin(wanted, (3, 4))
