@@ -840,6 +840,7 @@ TRACK_COLUMNS = ("m_cz_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc", "m_li_pres
 PROFILE_COLUMNS = ("profile_r_rsun", "profile_rho_gcc", "profile_t_k", "profile_m_msun")
 _REQUIRED_TRACK_KEYS = ("mass_msun", "logr", "logl", "logteff", "core_mass_msun", "kstar")
 _LAST_ENVELOPE_KSTAR = 6           # Hurley et al. 2000: 0-1 MS, 2 HG, 3 GB, 4 CHeB, 5-6 AGB
+_HERTZSPRUNG_GAP_KSTAR = 2
 
 
 def _track_row(result: EnvelopeResult):
@@ -958,15 +959,22 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     Rule per point (Hurley et al. 2000 phase code ``kstar``):
 
     - kstar 0-1 (main sequence): solar alpha, no core.
-    - kstar 2-6 with a core: solar alpha first, integrated down to the core
-      (radius ``core_radius_rsun`` up to the giant-branch tip,
-      ``helium_burning_core_radius_rsun`` from core helium burning on).
-      Kept (code 0) if the envelope meets the core within the radii
-      :data:`CORE_RADIUS_WINDOW_RSUN` (0.01-0.1 R_sun, where M_cz changes by only
-      1-2 %) and its convective base lies above the core.  Otherwise (on the
-      giant branch the solar alpha runs out of mass above the core) alpha is
-      solved so that the envelope meets the core (code 1,
-      :func:`solve_alphas_to_core`).
+    - kstar 2 (Hertzsprung gap) with a core: solar alpha first, integrated down
+      to the core (radius ``core_radius_rsun``).  Kept (code 0) if the envelope
+      meets the core within the radii :data:`CORE_RADIUS_WINDOW_RSUN` (0.01-0.1
+      R_sun, where M_cz changes by only 1-2 %) and its convective base lies above
+      the core.  Otherwise alpha is solved so that the envelope meets the core
+      (code 1, :func:`solve_alphas_to_core`).
+    - kstar 3-6 (giant branch, core-He burning, AGB) with a core: alpha always
+      solved so that the envelope meets the core (code 1; core radius
+      ``core_radius_rsun`` up to the tip, ``helium_burning_core_radius_rsun``
+      from core-He burning on).  The solar alpha is not tried first: there a
+      constant-L envelope can also meet the core with a shallow convective zone
+      over a radiative interior that holds most of the envelope's mass, a
+      spurious solution for stars on the Hayashi line (measured in the built grid:
+      whole giant branches at Z = 0.005-0.008 and red-clump stars had M_cz/(M -
+      M_core) of 0.01-0.5 with it); the solve scans from the high-alpha side and
+      finds the deep envelope.
     - no solution (mid-subgiant points of analytic tracks are out of thermal
       equilibrium): interpolated along the track between computed neighbours
       (code 2), in log for positive quantities; NaN if there is no computed point
@@ -1064,11 +1072,13 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
     if plain.size:
         store(plain, integrate_envelopes(mass[plain], radius[plain], logl[plain], z, alpha_solar, x=x), accept_main)
     cored = np.flatnonzero(with_core)
+    gap = cored[kstar[cored] == _HERTZSPRUNG_GAP_KSTAR]
+    if gap.size:
+        first = integrate_envelopes(mass[gap], radius[gap], logl[gap], z, alpha_solar, x=x,
+                                    core_mass_msun=core[gap], core_radius_rsun=core_radius[gap])
+        store(gap, first, lambda r: TRACK_QUALITY_OK if r.quality == QUALITY_OK else None)
     if cored.size:
-        first = integrate_envelopes(mass[cored], radius[cored], logl[cored], z, alpha_solar, x=x,
-                                    core_mass_msun=core[cored], core_radius_rsun=core_radius[cored])
-        store(cored, first, lambda r: TRACK_QUALITY_OK if r.quality == QUALITY_OK else None)
-        retry = cored[quality[cored] == TRACK_QUALITY_INTERPOLATED]
+        retry = cored[(quality[cored] == TRACK_QUALITY_INTERPOLATED) | (kstar[cored] > _HERTZSPRUNG_GAP_KSTAR)]
         if retry.size:
             solved = solve_alphas_to_core(mass[retry], radius[retry], logl[retry], z, core[retry],
                                           core_radius[retry], x=x)
