@@ -32,6 +32,20 @@ tracks at off-grid masses and metallicities to ~1-2% in L, R and Teff, except in
 few places listed in ``tests/test_tracks.py``; the tracks themselves are planning
 estimates with the accuracy of the fits.
 
+Then the convective envelope of every track point is integrated
+(:func:`track_envelope`, SCIENCE.md §16; needs ``rm-tables``): one mixing length
+calibrated on the Sun (:func:`prioritize.stars.envelope.calibrate_solar_alpha` at
+Z = 0.02), alpha solved on the giant branch so that the envelope meets the core,
+at every k-th EEP of each phase (:data:`ENVELOPE_STRIDES`) and interpolated along
+the track between, one track per process (``--workers``, default all cores).  The
+RGB bump of each track is where the core reaches the deepest point mixed by the
+envelope (:func:`prioritize.stars.envelope.rgb_bump_position`).  The provenance
+records the rm-tables version, alpha, the strides, the run times and the cores.
+Measured: the shipped grid (73 masses x 15 Z) took ~48 min with 2 worker
+processes on a 2-core machine shared with other work (~11 s of it the cosmic
+runs); ~3 s of one core per track.  Reproducible: cosmic's single-star runs draw no
+random numbers (seed fixed anyway) and the integration is deterministic.
+
 This is a build tool (file I/O, clock); the run-time package reads its output
 through :func:`prioritize.stars.tracks.load_grid` and never imports cosmic.
 """
@@ -42,6 +56,7 @@ import ast
 import contextlib
 import datetime
 import json
+import multiprocessing
 import operator
 import os
 import platform
@@ -56,8 +71,11 @@ import typer
 
 from ..constants import LOGG_SUN, TEFF_SUN_K, Z_SUN_TRACKS
 from ..errors import PrioritizeError
-from ..stars.tracks import (DATA_COLUMNS, MISSING_PHASE_CODE, N_EEPS, PHASE_EEPS,
-                            PROVENANCE_METADATA_KEY, TRACK_COLUMNS)
+from ..stars.envelope import (LITHIUM_BURNING_T_K, PROFILE_POINTS, TRACK_QUALITY_MEANINGS,
+                              calibrate_solar_alpha, envelope_along_track, rgb_bump_position)
+from ..stars.tracks import (BUMP_COLUMN, ENVELOPE_COLUMNS, MISSING_PHASE_CODE, N_EEPS, PHASE_EEPS,
+                            PROFILE_COLUMNS, PROFILE_DEPTH_FRACTIONS, PROFILE_LOG_STEP_DEX,
+                            PROVENANCE_METADATA_KEY, QUALITY_COLUMN, TRACK_COLUMNS, profile_column)
 
 
 def _mass_grid():
@@ -97,10 +115,23 @@ CHEB_DESCENT_EEPS = 10
 MS_PATH_AGE_WEIGHT = 0.5
 MS_PATH_TEFF_WEIGHT = 1.0
 FLOAT32_SIGNIFICANT_BITS = 14   # stored precision 2^-14 = 6.1e-5 (relative), far below the fits' accuracy
+ENVELOPE_SIGNIFICANT_BITS = 12  # 2.4e-4 relative, far below the envelope model's accuracy (~5-20 %)
 AGE_SIGNIFICANT_BITS = 32       # 2.3e-10 relative
-_FLOAT32_COLUMNS = tuple(c for c in DATA_COLUMNS if c not in ("age_myr", "kstar"))
+ENVELOPE_STRIDES = {"main_sequence": 2, "subgiant": 1, "giant_branch": 4, "core_he_burning": 2}
+"""Envelope integrated at every k-th EEP of each phase (plus phase ends), the rest
+interpolated along the track.  Chosen from the 95th-percentile errors of stride 2
+and 4 against stride 1 on 12 tracks (0.8-2.5 M_sun, Z = 0.004 and 0.02; M_cz,
+T_bcz, r_bcz, rho_bcz): main sequence <= 1.9 % at stride 2 but up to 34 % at 4
+(the thin surface zone of F stars switching on); subgiant up to 9 % at 2 (2-2.5
+M_sun, where M_cz grows by 4 dex), so stride 1; giant branch <= 3 % at 4; core-He
+burning <= 1.7 % at 2 but up to 10 % at 4."""
+_STRUCTURE_COLUMNS = ("logl", "logr", "logteff", "logg", "mass_msun", "core_mass_msun",
+                      "m_cz_fit_msun")
+_ENVELOPE_FLOAT_COLUMNS = ("m_cz_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc",
+                           "m_li_preserved_msun", "alpha_mlt")
+_ENVELOPE_TRACK_KEYS = ("mass_msun", "logr", "logl", "logteff", "core_mass_msun", "kstar")
 _BCM_COLUMNS = ["tphys", "kstar_1", "mass_1", "lum_1", "rad_1", "teff_1", "massc_he_layer_1",
-                "massc_co_layer_1", "menv_1", "renv_1"]     # teff_1 only for checks
+                "massc_co_layer_1", "menv_1"]     # teff_1 only for checks
 _ARITHMETIC = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul,
                ast.Div: operator.truediv}
 
@@ -288,7 +319,7 @@ def _with_helium_ignition_tip(phase, ignition):
 
 
 def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass_msun,
-                     m_env_msun, r_env_rsun, label="track"):
+                     extra=None, label="track", require_remnant=True):
     """Resample one dense track at the equivalent evolutionary points of PHASE_EEPS.
 
     Within each phase (kstar 0/1 main sequence, 2 Hertzsprung gap, 3 giant branch,
@@ -306,25 +337,34 @@ def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass
 
     Parameters
     ----------
-    age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass_msun, m_env_msun, r_env_rsun : array_like
+    age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass_msun : array_like
         The dense track in time order (age from the ZAMS in Myr; L, R, masses in
-        solar units; envelope mass and radial thickness).
+        solar units).
+    extra : dict of str -> array_like, optional
+        More dense columns resampled the same way (e.g. an envelope mass).
     label : str
         Names the track in error messages (e.g. "M = 1.00 M_sun, Z = 0.020").
+    require_remnant : bool
+        True (the built-in grid): the track must end as a white dwarf (kstar >= 10)
+        and core-He burning counts as complete only if the early AGB (kstar 5)
+        follows.  False (users' tracks, which stop earlier): the track may end
+        anywhere after the giant branch, and a core-He-burning phase that ends the
+        track is taken to run to core-He exhaustion.
 
     Returns
     -------
     columns : dict of str -> ndarray, shape (N_EEPS,)
-        The columns of :data:`prioritize.stars.tracks.TRACK_COLUMNS`; NaN and kstar -1
-        in core-He burning when the track has no complete core-He-burning phase.
+        ``age_myr, logl, logr, logteff, logg, mass_msun, core_mass_msun, kstar`` and
+        the ``extra`` columns; NaN and kstar -1 in core-He burning when the track
+        has no complete core-He-burning phase.
     missing_phase : str or None
         Why core-He burning is missing, or None.
 
     Raises
     ------
     PrioritizeError
-        If the track is truncated: it does not end as a white dwarf, or lacks a
-        main sequence, Hertzsprung gap or giant branch.
+        If the track is truncated: it does not end as a white dwarf (when
+        required), or lacks a main sequence, Hertzsprung gap or giant branch.
 
     References
     ----------
@@ -336,10 +376,9 @@ def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass
     dense = {"age_myr": age, "logl": np.log10(np.asarray(lum_lsun, dtype=float)),
              "logr": np.log10(np.asarray(radius_rsun, dtype=float)),
              "mass_msun": np.asarray(mass_msun, dtype=float),
-             "core_mass_msun": np.asarray(core_mass_msun, dtype=float),
-             "m_cz_msun": np.asarray(m_env_msun, dtype=float),
-             "r_cz_rsun": np.asarray(r_env_rsun, dtype=float)}
-    if kstar[-1] < FIRST_REMNANT_KSTAR:
+             "core_mass_msun": np.asarray(core_mass_msun, dtype=float)}
+    dense.update({name: np.asarray(values, dtype=float) for name, values in (extra or {}).items()})
+    if require_remnant and kstar[-1] < FIRST_REMNANT_KSTAR:
         raise PrioritizeError(f"track {label} is truncated: it stops at age {age[-1]:.0f} Myr in "
                               f"phase kstar {kstar[-1]} instead of ending as a white dwarf; "
                               "raise tphysf")
@@ -351,23 +390,28 @@ def resample_to_eeps(age_myr, kstar, lum_lsun, radius_rsun, mass_msun, core_mass
         if phases[name].size < 2:
             raise PrioritizeError(f"track {label} is truncated: phase '{name}' has "
                                   f"{phases[name].size} output step(s)")
+
+    def next_code(rows):
+        return int(kstar[rows[-1] + 1]) if rows[-1] + 1 < kstar.size else None
+
     he_rows = phases["core_he_burning"]
-    after_gb = kstar[phases["giant_branch"][-1] + 1]
     missing_phase = None
     if he_rows.size == 0:
-        missing_phase = (f"no core-He burning: the envelope was lost on the giant branch "
-                         f"(next phase kstar {after_gb})")
-    elif he_rows.size < 2 or kstar[he_rows[-1] + 1] != EARLY_AGB:
+        after_gb = next_code(phases["giant_branch"])
+        missing_phase = ("no core-He burning: the track ends on the giant branch" if after_gb is None
+                         else f"no core-He burning: the envelope was lost on the giant branch "
+                              f"(next phase kstar {after_gb})")
+    elif he_rows.size < 2 or next_code(he_rows) not in ((EARLY_AGB,) if require_remnant else (EARLY_AGB, None)):
         missing_phase = (f"core-He burning ended by envelope loss (kstar 4 -> "
-                         f"{kstar[he_rows[-1] + 1]}) before the early AGB")
-    out = {name: np.full(N_EEPS, np.nan) for name in DATA_COLUMNS}
+                         f"{next_code(he_rows)}) before the early AGB")
+    out = {name: np.full(N_EEPS, np.nan) for name in dense}
     out["kstar"] = np.full(N_EEPS, MISSING_PHASE_CODE, dtype=np.int8)
     for name, rows in phases.items():
         if name == "core_he_burning" and missing_phase is not None:
             continue
         if name == "giant_branch":
             rows = rows[: np.argmax(dense["logl"][rows]) + 1]
-        else:
+        elif rows[-1] + 1 < kstar.size:
             rows = np.append(rows, rows[-1] + 1)     # the phase ends where the next one starts
         keep = _strictly_increasing(dense["logl" if name == "giant_branch" else "age_myr"][rows])
         if keep.sum() < 2:
@@ -404,7 +448,9 @@ def tracks_table(masses, z, bse_options=None, tphysf_myr=TPHYSF_MYR):
     Returns
     -------
     table : pandas.DataFrame
-        Columns ``KEY_COLUMNS + DATA_COLUMNS``, sorted by z, mass, eep.
+        Columns ``KEY_COLUMNS``, the structure columns of
+        :data:`prioritize.stars.tracks.TRACK_COLUMNS` (all but ``m_cz_msun``) and
+        ``m_cz_fit_msun`` (the fits' envelope mass), sorted by z, mass, eep.
     missing : list of dict
         Tracks without a complete core-He-burning phase: mass, z, reason.
     """
@@ -417,8 +463,8 @@ def tracks_table(masses, z, bse_options=None, tphysf_myr=TPHYSF_MYR):
             star = bcm[bcm["bin_num"] == i]
             columns, why = resample_to_eeps(
                 star["tphys"], star["kstar_1"], star["lum_1"], star["rad_1"], star["mass_1"],
-                star["massc_he_layer_1"] + star["massc_co_layer_1"], star["menv_1"], star["renv_1"],
-                label=f"M = {mass:.3f} M_sun, Z = {zi:.4f}")
+                star["massc_he_layer_1"] + star["massc_co_layer_1"],
+                extra={"m_cz_fit_msun": star["menv_1"]}, label=f"M = {mass:.3f} M_sun, Z = {zi:.4f}")
             if why is not None:
                 missing.append({"initial_mass_msun": float(mass), "z": float(zi), "reason": why})
             frame = pd.DataFrame(columns)
@@ -428,6 +474,107 @@ def tracks_table(masses, z, bse_options=None, tphysf_myr=TPHYSF_MYR):
             frames.append(frame)
     table = pd.concat(frames, ignore_index=True).sort_values(["z", "initial_mass_msun", "eep"])
     return table.reset_index(drop=True), missing
+
+
+def envelope_stride_per_eep(strides=None):
+    """Stride of the envelope integration at each EEP, from a stride per phase.
+
+    Parameters
+    ----------
+    strides : dict of str -> int, optional
+        Phase name of :data:`PHASE_EEPS` -> stride; default :data:`ENVELOPE_STRIDES`.
+
+    Returns
+    -------
+    ndarray of int, shape (N_EEPS,)
+    """
+    strides = ENVELOPE_STRIDES if strides is None else strides
+    out = np.ones(N_EEPS, dtype=int)
+    for name, (start, stop) in PHASE_EEPS.items():
+        out[start:stop] = int(strides[name])
+    return out
+
+
+def track_envelope(track, z, alpha_solar, strides=None):
+    """Envelope columns of one resampled track (SCIENCE.md §16).
+
+    Calls :func:`prioritize.stars.envelope.envelope_along_track` with the stride of
+    :func:`envelope_stride_per_eep` and converts its output to grid columns: the
+    envelope columns, ``envelope_quality``, the track's RGB bump
+    (:func:`prioritize.stars.envelope.rgb_bump_position`, repeated on every row) and
+    the profiles as log10 rho and log10 T at the 16 depths of
+    :data:`prioritize.stars.tracks.PROFILE_DEPTH_FRACTIONS`.
+
+    Parameters
+    ----------
+    track : dict of str -> ndarray, shape (N_EEPS,)
+        ``mass_msun, logr, logl, logteff, core_mass_msun, kstar`` along the EEPs.
+    z : float
+        Metal mass fraction.
+    alpha_solar : float
+        Solar-calibrated mixing length.
+    strides : dict, optional
+        Per-phase strides (default :data:`ENVELOPE_STRIDES`).
+
+    Returns
+    -------
+    dict of str -> ndarray, shape (N_EEPS,)
+        Planning estimates (see :mod:`prioritize.stars.envelope`).
+    """
+    env = envelope_along_track({k: track[k] for k in _ENVELOPE_TRACK_KEYS}, z, alpha_solar,
+                               eep_stride=envelope_stride_per_eep(strides))
+    out = {name: env[name] for name in _ENVELOPE_FLOAT_COLUMNS}
+    out[QUALITY_COLUMN] = env["envelope_quality"]
+    bump = rgb_bump_position(track["mass_msun"], track["core_mass_msun"], env["m_cz_msun"], track["kstar"])
+    out[BUMP_COLUMN] = np.full(N_EEPS, bump)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for quantity, key in (("rho", "profile_rho_gcc"), ("t", "profile_t_k")):
+            for k in range(PROFILE_POINTS):
+                out[profile_column(quantity, k)] = np.log10(env[key][:, k])
+    return out
+
+
+def _envelope_task(task):
+    z, track, alpha_solar, strides = task
+    return track_envelope(track, z, alpha_solar, strides)
+
+
+def envelope_table(table, alpha_solar, strides=None, workers=1, progress=None):
+    """Add the envelope columns to a grid table, one process per track at a time.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Output of :func:`tracks_table` (sorted by z, initial mass, EEP).
+    alpha_solar : float
+        Solar-calibrated mixing length (:func:`prioritize.stars.envelope.calibrate_solar_alpha`).
+    strides : dict, optional
+        Per-phase strides (default :data:`ENVELOPE_STRIDES`).
+    workers : int
+        Worker processes (1: in this process).
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each track.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The table with ``m_cz_msun`` (ours) and the other envelope and profile columns.
+    """
+    keys = ["z", "initial_mass_msun"]
+    groups = [frame for _, frame in table.groupby(keys, sort=True)]
+    tasks = [(float(frame["z"].iloc[0]), {c: frame[c].to_numpy() for c in _ENVELOPE_TRACK_KEYS},
+              float(alpha_solar), strides) for frame in groups]
+    results = []
+    pool = multiprocessing.get_context("fork").Pool(workers) if workers > 1 else contextlib.nullcontext()
+    with pool:
+        iterator = (pool.imap(_envelope_task, tasks, chunksize=1) if workers > 1
+                    else map(_envelope_task, tasks))
+        for result in iterator:
+            results.append(result)
+            if progress:
+                progress(len(results), len(tasks))
+    frames = [frame.reset_index(drop=True).assign(**result) for frame, result in zip(groups, results)]
+    return pd.concat(frames, ignore_index=True)
 
 
 def provenance_path_for(output):
@@ -468,35 +615,61 @@ def round_significand(values, bits):
     return np.ldexp(np.round(mantissa * 2.0 ** bits) / 2.0 ** bits, exponent)
 
 
+def _profile_codes(values):
+    """log10 profile values -> int16 multiples of PROFILE_LOG_STEP_DEX (None where NaN)."""
+    import pyarrow as pa
+
+    values = np.asarray(values, dtype=float)
+    finite = np.isfinite(values)
+    codes = np.round(np.where(finite, values, 0.0) / PROFILE_LOG_STEP_DEX)
+    return pa.array(codes.astype(np.int16), mask=~finite)
+
+
 def write_grid(table, provenance, output):
     """Write the grid as Parquet (provenance in its metadata) plus the JSON sidecar.
 
-    Float columns are rounded to FLOAT32_SIGNIFICANT_BITS (ages AGE_SIGNIFICANT_BITS)
-    significant bits before writing (the file shrinks from ~12 to ~5.5 MB).
+    Float columns are rounded to FLOAT32_SIGNIFICANT_BITS significant bits
+    (envelope columns ENVELOPE_SIGNIFICANT_BITS, ages AGE_SIGNIFICANT_BITS) and
+    the profiles stored as int16 multiples of PROFILE_LOG_STEP_DEX in log10, so
+    that the file compresses (~20 MB).
     """
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    table = table.copy()
-    for column in _FLOAT32_COLUMNS:
-        table[column] = round_significand(table[column], FLOAT32_SIGNIFICANT_BITS)
-    table["age_myr"] = round_significand(table["age_myr"], AGE_SIGNIFICANT_BITS)
-
-    fields = [pa.field("initial_mass_msun", pa.float64()), pa.field("z", pa.float64()),
-              pa.field("eep", pa.int16()), pa.field("age_myr", pa.float64())]
-    fields += [pa.field(c, pa.float32()) for c in _FLOAT32_COLUMNS]
-    fields.append(pa.field("kstar", pa.int8()))
+    float32 = [(c, FLOAT32_SIGNIFICANT_BITS) for c in (*_STRUCTURE_COLUMNS, BUMP_COLUMN)]
+    float32 += [(c, ENVELOPE_SIGNIFICANT_BITS) for c in _ENVELOPE_FLOAT_COLUMNS]
+    arrays = {"initial_mass_msun": pa.array(table["initial_mass_msun"].to_numpy(dtype=float)),
+              "z": pa.array(table["z"].to_numpy(dtype=float)),
+              "eep": pa.array(table["eep"].to_numpy().astype(np.int16)),
+              "age_myr": pa.array(round_significand(table["age_myr"], AGE_SIGNIFICANT_BITS))}
+    for column, bits in float32:
+        arrays[column] = pa.array(round_significand(table[column], bits).astype(np.float32))
+    for column in ("kstar", QUALITY_COLUMN):
+        arrays[column] = pa.array(table[column].to_numpy().astype(np.int8))
+    for column in PROFILE_COLUMNS:
+        arrays[column] = _profile_codes(table[column])
     text = json.dumps(provenance, indent=1)
-    schema = pa.schema(fields, metadata={PROVENANCE_METADATA_KEY: text.encode()})
-    arrow = pa.Table.from_pandas(table[[f.name for f in fields]], schema=schema, preserve_index=False)
+    arrow = pa.table(arrays).replace_schema_metadata({PROVENANCE_METADATA_KEY: text.encode()})
+    floats = ["age_myr", *(c for c, _ in float32)]
     _atomic_write(output, lambda tmp: pq.write_table(
         arrow, tmp, compression="zstd", compression_level=19,
-        use_dictionary=["initial_mass_msun", "z", "eep", "kstar"],
-        use_byte_stream_split=["age_myr", *_FLOAT32_COLUMNS]))
+        use_dictionary=["initial_mass_msun", "z", "eep", "kstar", QUALITY_COLUMN, BUMP_COLUMN],
+        use_byte_stream_split=[c for c in floats if c != BUMP_COLUMN],
+        column_encoding={c: "DELTA_BINARY_PACKED" for c in PROFILE_COLUMNS}))
     _atomic_write(provenance_path_for(output), lambda tmp: Path(tmp).write_text(text + "\n"))
 
 
-def build(output=DEFAULT_OUTPUT, masses=DEFAULT_MASSES, z=DEFAULT_Z, command=None):
+def _package_version(name):
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version(name)
+    except PackageNotFoundError:
+        return None
+
+
+def build(output=DEFAULT_OUTPUT, masses=DEFAULT_MASSES, z=DEFAULT_Z, command=None, workers=None,
+          strides=None, progress=None):
     """Build a track grid and write it with its provenance (the builder's entry function).
 
     Parameters
@@ -507,6 +680,12 @@ def build(output=DEFAULT_OUTPUT, masses=DEFAULT_MASSES, z=DEFAULT_Z, command=Non
         Initial masses (M_sun) and metal mass fractions of the grid.
     command : str, optional
         Command line recorded in the provenance.
+    workers : int, optional
+        Processes for the envelope integrations (default: the number of cores).
+    strides : dict, optional
+        Envelope stride per phase (default :data:`ENVELOPE_STRIDES`).
+    progress : callable, optional
+        ``progress(done, total)`` after each track's envelope.
 
     Returns
     -------
@@ -520,37 +699,65 @@ def build(output=DEFAULT_OUTPUT, masses=DEFAULT_MASSES, z=DEFAULT_Z, command=Non
     if z[0] < FITS_Z_RANGE[0] or z[-1] > FITS_Z_RANGE[1]:
         raise PrioritizeError(f"metallicities must lie in Z = {FITS_Z_RANGE[0]}-{FITS_Z_RANGE[1]}, "
                               f"where the Hurley et al. (2000) fits hold; got {z[0]}-{z[-1]}")
+    workers = (os.cpu_count() or 1) if workers is None else int(workers)
+    if workers < 1:
+        raise PrioritizeError(f"workers must be at least 1; got {workers}")
+    strides = dict(ENVELOPE_STRIDES if strides is None else strides)
     cosmic, _, _ = _require_cosmic()
     options = default_bse_options()
     started = time.perf_counter()
     table, missing = tracks_table(masses, z, options)
+    tracks_time = time.perf_counter() - started
+    alpha_solar = calibrate_solar_alpha(Z_SUN_TRACKS)
+    table = envelope_table(table, alpha_solar, strides, workers, progress)
     run_time = time.perf_counter() - started
     provenance = {
         "description": "Single-star tracks from the Hurley, Pols & Tout (2000, MNRAS 315, 543) "
                        "fitting formulae evaluated by cosmic-popsynth, resampled at equivalent "
-                       "evolutionary points. Planning estimates.",
+                       "evolutionary points, with the convective envelope integrated at every "
+                       "track point by prioritize.stars.envelope (SCIENCE.md §16). Planning estimates.",
         "generator": "prioritize.data.build_tracks",
         "command": command or "python -m prioritize.data.build_tracks",
         "build_date_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         "run_time_s": round(run_time, 1),
+        "tracks_run_time_s": round(tracks_time, 1),
+        "envelope_run_time_s": round(run_time - tracks_time, 1),
+        "workers": workers,
+        "cpu_count": os.cpu_count(),
         "cosmic_version": cosmic.__version__,
+        "rm_tables_version": _package_version("rm-tables"),
         "python": platform.python_version(),
         "numpy": np.__version__,
         "stellar_engine": "sse",
         "initial_binaries": {"m2": 0, "porb": -1, "ecc": -1, "kstar1": 1, "kstar2": 15,
                              "tphysf_myr": TPHYSF_MYR},
         "dtp_myr": DTP_MYR,
+        "random_seed": RANDOM_SEED,
         "zsun": ZSUN_OPTION,
         "bse_options": options,
         "initial_masses_msun": masses,
         "z": z,
         "phase_eeps": {k: list(v) for k, v in PHASE_EEPS.items()},
         "phase_spacing": PHASE_SPACING,
-        "columns": TRACK_COLUMNS,
+        "columns": {**TRACK_COLUMNS, **ENVELOPE_COLUMNS},
+        "envelope": {
+            "alpha_solar": alpha_solar,
+            "alpha_calibration": "r_bcz = 0.713 R_sun for M = 1 M_sun, R = 1 R_sun, L = 1 L_sun, "
+                                 f"Z = {Z_SUN_TRACKS}, X = 0.76 - 3Z",
+            "strides": strides,
+            "quality_codes": {str(k): v for k, v in TRACK_QUALITY_MEANINGS.items()},
+            "lithium_burning_t_k": LITHIUM_BURNING_T_K,
+            "profile_depth_fractions": [round(float(f), 6) for f in PROFILE_DEPTH_FRACTIONS],
+            "profile_radius": "r_k = R (r_bcz/R)^f_k",
+            "profile_log_step_dex": PROFILE_LOG_STEP_DEX,
+            "rgb_bump": "first giant-branch point where the core mass reaches min(M - M_cz) over "
+                        "the subgiant and giant branch, interpolated in core mass",
+        },
         "teff_convention": "log Teff from log L and log R with Teff_sun = 5772 K (IAU 2015); "
                            "cosmic's own teff uses 1000 (1130 L/R^2)^(1/4) K, 0.45% hotter",
         "stored_significant_bits": {"age_myr": AGE_SIGNIFICANT_BITS,
-                                    **{c: FLOAT32_SIGNIFICANT_BITS for c in _FLOAT32_COLUMNS}},
+                                    **{c: FLOAT32_SIGNIFICANT_BITS for c in _STRUCTURE_COLUMNS},
+                                    **{c: ENVELOPE_SIGNIFICANT_BITS for c in _ENVELOPE_FLOAT_COLUMNS}},
         "tracks_without_core_he_burning": missing,
     }
     write_grid(table, provenance, output)
@@ -571,6 +778,11 @@ def _parse_values(text, what):
                                  f"start:stop:step (0.7:3.5:0.05), got '{text}'") from exc
 
 
+def _report_progress(done, total):
+    if done == total or done % 25 == 0:
+        typer.echo(f"envelopes: {done}/{total} tracks", err=True)
+
+
 app = typer.Typer(add_completion=False, help=__doc__.split("\n\n")[0])
 
 
@@ -585,6 +797,8 @@ def main(
     z: str | None = typer.Option(None, "--z",
                                  help="Metallicities Z, e.g. '0.014,0.02' (default: 15 values "
                                       "0.003-0.03)."),
+    workers: int = typer.Option(os.cpu_count() or 1, "--workers", min=1,
+                                help="Processes for the envelope integrations (default: all cores)."),
 ):
     """Build the stellar track grid (Hurley et al. 2000 fits via cosmic-popsynth).
 
@@ -595,7 +809,8 @@ def main(
     z_list = DEFAULT_Z if z is None else _parse_values(z, "--z")
     try:
         provenance = build(output, mass_list, z_list,
-                           command=" ".join(["python -m prioritize.data.build_tracks", *sys.argv[1:]]))
+                           command=" ".join(["python -m prioritize.data.build_tracks", *sys.argv[1:]]),
+                           workers=workers, progress=_report_progress)
     except PrioritizeError as exc:
         typer.echo(f"error: {exc}", err=True)
         raise typer.Exit(1) from exc

@@ -27,15 +27,29 @@ degenerate helium flash EEPs 480-490 coincide.  Low-mass metal-rich tracks whose
 main-sequence lifetime exceeds ~16 Gyr lose their envelope before or during core-He
 burning; their core-He-burning EEPs are NaN (``kstar`` -1).
 
+Every track point also carries the outer convective envelope from our envelope
+integration (SCIENCE.md §16, :mod:`prioritize.stars.envelope`, run when the grid
+is built, never at run time): M_cz, the radius, temperature and density at its
+base, the lithium-preserving mass above 2.5 MK, the mixing length, a quality code
+(:data:`prioritize.stars.envelope.TRACK_QUALITY_MEANINGS`), log rho and log T at
+16 depths (:data:`PROFILE_DEPTH_FRACTIONS`) and, per track, the EEP of the RGB
+bump.  The package reads them only through :func:`convective_envelope`,
+:func:`envelope_profile` and :func:`rgb_bump_eep`.
+
 Everything read from tracks is a model estimate for planning, with the accuracy of
 the Hurley et al. fits to the detailed models of Pols et al. (1998) plus the
 interpolation errors measured in ``tests/test_tracks.py`` (~1-2% in L, R and Teff
-for most of the grid) — not a substitute for a detailed model of a particular star.
+for most of the grid) and, for the envelope, the model's own accuracy (~5 % in
+T_bcz, ~10-20 % in M_cz for the Sun) plus the errors measured in
+``tests/test_grid_envelope.py`` — not a substitute for a detailed model of a
+particular star.
 
 This module is the run-time side: it reads the grid and interpolates it; it never
-imports the package that built it.  Users with their own models can supply a table
-in the same long format (columns :data:`KEY_COLUMNS` + :data:`TRACK_COLUMNS`, EEP
-layout :data:`PHASE_EEPS`) to :func:`load_grid`.
+imports the package that built it.  Grid files in the same long format (columns
+:data:`KEY_COLUMNS` + :data:`TRACK_COLUMNS`, optionally :data:`ENVELOPE_COLUMNS`
+and :data:`PROFILE_COLUMNS`, EEP layout :data:`PHASE_EEPS`) load with
+:func:`load_grid`; users' own tracks (our track-table format, MESA history files)
+with :func:`prioritize.stars.track_sources.load_tracks`.
 """
 
 from __future__ import annotations
@@ -50,6 +64,7 @@ import numpy as np
 
 from ..constants import Z_SUN_TRACKS
 from ..errors import CatalogError, PrioritizeError
+from .envelope import PROFILE_DEPTH_FRACTIONS, PROFILE_POINTS, TRACK_QUALITY_NOT_COMPUTED
 
 Z_SUN = Z_SUN_TRACKS
 
@@ -70,15 +85,46 @@ TRACK_COLUMNS = {
     "logteff": "log10 effective temperature (K), from L and R with the IAU 2015 nominal solar values",
     "logg": "log10 surface gravity (cgs)",
     "mass_msun": "current mass after wind mass loss (M_sun)",
-    "core_mass_msun": "helium core mass (M_sun); zero on the main sequence in these fits",
-    "m_cz_msun": "mass of the convective envelope (M_sun), the fits' crude estimate",
-    "r_cz_rsun": "radial thickness of the convective envelope, R - r_base (R_sun)",
+    "core_mass_msun": "helium core mass (M_sun); zero on the main sequence in the Hurley et al. fits",
+    "m_cz_msun": "mass of the outer convective envelope (M_sun): our envelope integration "
+                 "(SCIENCE.md §16) in the built-in grid; in older grid files the fits' crude estimate",
     "kstar": "phase code of Hurley et al. 2000 (0/1 main sequence, 2 Hertzsprung gap, "
              "3 giant branch, 4 core-He burning); -1 where the track has no such phase",
 }
 DATA_COLUMNS = tuple(TRACK_COLUMNS)
+ENVELOPE_COLUMNS = {
+    "m_cz_fit_msun": "convective-envelope mass of the Hurley et al. (2000) fits (M_sun), kept for comparison",
+    "r_bcz_rsun": "radius of the base of the outer convective envelope (R_sun)",
+    "t_bcz_k": "temperature at the base of the outer convective envelope (K)",
+    "rho_bcz_gcc": "density at the base of the outer convective envelope (g cm^-3)",
+    "m_li_preserved_msun": "mass above the 2.5 MK isotherm, the lithium-preserving mass (M_sun)",
+    "alpha_mlt": "mixing-length parameter of the envelope integration",
+    "envelope_quality": "int8 code, see prioritize.stars.envelope.TRACK_QUALITY_MEANINGS",
+    "rgb_bump_eep": "fractional EEP of the RGB bump of the track (the same on every row of a "
+                    "track); NaN where the track has none",
+}
+"""Optional columns: a grid or user table without them still loads (NaN, quality
+:data:`~prioritize.stars.envelope.TRACK_QUALITY_NOT_COMPUTED`)."""
+PROFILE_QUANTITIES = ("rho", "t")
+PROFILE_LOG_STEP_DEX = 0.002
+"""Profiles are stored as int16 multiples of this step in log10 (0.46 %)."""
+
+
+def profile_column(quantity, k):
+    """Name of the stored profile column: ``prof_log_rho_07`` = log10 rho (g cm^-3) at depth 7."""
+    return f"prof_log_{quantity}_{k:02d}"
+
+
+PROFILE_COLUMNS = tuple(profile_column(q, k) for q in PROFILE_QUANTITIES for k in range(PROFILE_POINTS))
+QUALITY_COLUMN = "envelope_quality"
+BUMP_COLUMN = "rgb_bump_eep"
 PHASE_CODE_COLUMN = "kstar"
 MISSING_PHASE_CODE = -1
+_LOG_INTERPOLATED = ("m_cz_msun", "m_cz_fit_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc",
+                     "m_li_preserved_msun")
+_CODE_COLUMNS = (PHASE_CODE_COLUMN, QUALITY_COLUMN)
+_PROFILE_KEY = "profile:"
+_LOG_FLOOR = 1e-30     # M_cz of a radiative envelope is ~1e-10 M_sun (the atmosphere); zero is floored
 
 PROVENANCE_METADATA_KEY = b"prioritize.provenance"
 _DEFAULT_GRID = "tracks_grid.parquet"
@@ -190,8 +236,12 @@ class TrackGrid:
     eeps : ndarray, shape (n_e,)
         EEP indices 0 .. n_e-1 (layout :data:`PHASE_EEPS`).
     data : dict of str -> ndarray, shape (n_z, n_m, n_e)
-        One array per column of :data:`TRACK_COLUMNS`; NaN (kstar -1) where a track has
-        no such phase.
+        One array per column of :data:`TRACK_COLUMNS` (required) and of
+        :data:`ENVELOPE_COLUMNS` (optional: missing ones become NaN, quality
+        ``TRACK_QUALITY_NOT_COMPUTED``); NaN (kstar -1) where a track has no such phase.
+    profiles : dict of str -> ndarray, shape (n_z, n_m, n_e, 16), optional
+        log10 density (``"rho"``, g cm^-3) and log10 temperature (``"t"``, K) of the
+        envelope at :data:`PROFILE_DEPTH_FRACTIONS`; None if the grid has none.
     provenance : dict
         How the grid was made (see ``tracks_provenance.json``).
 
@@ -199,14 +249,16 @@ class TrackGrid:
     -----
     Interpolation (:meth:`interpolate`) is linear in log Z, linear in initial mass
     and linear in fractional EEP; ages are interpolated in log age between tracks
-    (main-sequence lifetimes scale as a power of mass).  Points outside the grid, or
-    next to a track without the requested phase, give NaN: nothing is extrapolated.
+    (main-sequence lifetimes scale as a power of mass), positive envelope quantities
+    (M_cz spans 1e-10 to 1 M_sun) and the profiles in log.  Points outside the grid,
+    or next to a track without the requested phase, give NaN: nothing is extrapolated.
     """
 
     masses: np.ndarray
     z: np.ndarray
     eeps: np.ndarray
     data: dict = field(repr=False)
+    profiles: dict | None = field(default=None, repr=False)
     provenance: dict = field(default_factory=dict, repr=False)
     _filled: dict = field(init=False, repr=False, compare=False)
     _valid: np.ndarray = field(init=False, repr=False, compare=False)
@@ -224,29 +276,55 @@ class TrackGrid:
         missing = [c for c in DATA_COLUMNS if c not in self.data]
         if missing:
             raise PrioritizeError(f"TrackGrid: data lacks column(s) {missing}")
+        unknown = [c for c in self.data if c not in TRACK_COLUMNS and c not in ENVELOPE_COLUMNS]
+        if unknown:
+            raise PrioritizeError(f"TrackGrid: unknown column(s) {unknown}; see TRACK_COLUMNS and "
+                                  "ENVELOPE_COLUMNS")
+        source = dict(self.data)
+        for name in ENVELOPE_COLUMNS:
+            if name not in source:
+                source[name] = (np.full(shape, TRACK_QUALITY_NOT_COMPUTED) if name == QUALITY_COLUMN
+                                else np.full(shape, np.nan))
         data = {}
-        for name, values in self.data.items():
-            arr = np.array(values, dtype=np.int8 if name == PHASE_CODE_COLUMN else None)
+        for name, values in source.items():
+            arr = np.array(values, dtype=np.int8 if name in _CODE_COLUMNS else None)
             if arr.shape != shape:
                 raise PrioritizeError(f"TrackGrid: column '{name}' has shape {arr.shape}, "
                                       f"expected (n_z, n_m, n_e) = {shape}")
             arr.flags.writeable = False
             data[name] = arr
+        profiles = None
+        if self.profiles is not None:
+            profiles = {}
+            for name in PROFILE_QUANTITIES:
+                arr = np.array(self.profiles[name], dtype=np.float32)
+                if arr.shape != shape + (PROFILE_POINTS,):
+                    raise PrioritizeError(f"TrackGrid: profile '{name}' has shape {arr.shape}, "
+                                          f"expected {shape + (PROFILE_POINTS,)}")
+                arr.flags.writeable = False
+                profiles[name] = arr
         valid = data[PHASE_CODE_COLUMN] != MISSING_PHASE_CODE
         if np.any(data["age_myr"][:, :, 0] != 0):
             raise PrioritizeError("TrackGrid: age_myr must be 0 at EEP 0 (ages count from the ZAMS)")
         filled = {}
         for name, arr in data.items():
+            if name == BUMP_COLUMN:
+                continue
             values = arr.astype(float)
-            if name == "age_myr":
-                with np.errstate(divide="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore"):
+                if name == "age_myr":
                     values = np.log10(values)
-                values[:, :, 0] = 0.0          # log of the ZAMS age 0; restored after blending
+                    values[:, :, 0] = 0.0          # log of the ZAMS age 0; restored after blending
+                elif name in _LOG_INTERPOLATED:
+                    values = np.log10(np.maximum(values, _LOG_FLOOR))
             filled[name] = np.where(valid, values, 0.0).ravel()
+        for name in PROFILE_QUANTITIES if profiles is not None else ():
+            filled[_PROFILE_KEY + name] = np.where(valid[..., None], profiles[name], 0.0).reshape(-1, PROFILE_POINTS)
         for name, value in (("masses", masses), ("z", z), ("eeps", eeps)):
             value.flags.writeable = False
             object.__setattr__(self, name, value)
         object.__setattr__(self, "data", data)
+        object.__setattr__(self, "profiles", profiles)
         object.__setattr__(self, "_filled", filled)
         object.__setattr__(self, "_valid", valid.ravel())
 
@@ -284,8 +362,10 @@ class TrackGrid:
         """Track quantities at (initial mass, Z, fractional EEP).
 
         Trilinear interpolation: linear in initial mass, in log Z and in fractional
-        EEP (log age between tracks for ``age_myr``).  ``kstar`` is taken from the
-        nearest grid point.  Model estimates for planning (Hurley et al. 2000 fits).
+        EEP (log age between tracks for ``age_myr``; log for the positive envelope
+        quantities).  ``kstar`` and ``envelope_quality`` are taken from the nearest
+        grid point.  Model estimates for planning (Hurley et al. 2000 fits, our
+        envelope integration).
 
         Parameters
         ----------
@@ -296,14 +376,16 @@ class TrackGrid:
         eep : array_like
             Fractional EEP, 0 .. N_EEPS-1 (see :data:`PHASE_EEPS`).
         columns : sequence of str, optional
-            Columns of :data:`TRACK_COLUMNS` to return (default: all).
+            Columns of :data:`TRACK_COLUMNS` or :data:`ENVELOPE_COLUMNS` (except
+            ``rgb_bump_eep``, see :func:`rgb_bump_eep`) to return (default: the
+            :data:`TRACK_COLUMNS`).
 
         Returns
         -------
         dict of str -> ndarray
             One float array per column with the broadcast shape of the inputs; NaN
             where the point is outside the grid, an input is not finite, or a
-            neighbouring track lacks the phase (``kstar`` included).
+            neighbouring track lacks the phase (``kstar`` included) or the value.
 
         Raises
         ------
@@ -311,10 +393,51 @@ class TrackGrid:
             If a column name is unknown.
         """
         columns = DATA_COLUMNS if columns is None else tuple(columns)
-        unknown = [c for c in columns if c not in self._filled]
+        unknown = [c for c in columns if c not in self._filled or c.startswith(_PROFILE_KEY)]
         if unknown:
-            raise PrioritizeError(f"TrackGrid.interpolate: unknown column(s) {unknown}; "
-                                  f"choose from {list(self._filled)}")
+            raise PrioritizeError(f"TrackGrid.interpolate: unknown column(s) {unknown}; choose from "
+                                  f"{[c for c in self._filled if not c.startswith(_PROFILE_KEY)]}")
+        shape, lower, weights, fe, good = self._locate(mass, z, eep)
+        out = {}
+        for name in columns:
+            if name in _CODE_COLUMNS:
+                out[name] = self._nearest_code(name, lower, weights, fe, good).reshape(shape)
+                continue
+            at_lo, at_hi = self._blend(self._filled[name], lower, weights, fe)
+            if name == "age_myr":
+                e0 = lower[0] % self.eeps.size          # EEP node below each point
+                at_lo = np.where(e0 == 0, 0.0, 10.0 ** at_lo)
+                at_hi = 10.0 ** at_hi
+            value = at_lo + fe * (at_hi - at_lo)
+            if name in _LOG_INTERPOLATED:
+                value = 10.0 ** value
+            out[name] = np.where(good, value, np.nan).reshape(shape)
+        return out
+
+    def profile(self, mass, z, eep):
+        """log10 rho and log10 T profiles at (initial mass, Z, fractional EEP).
+
+        Interpolated like :meth:`interpolate` (linear in log of the values).
+
+        Returns
+        -------
+        dict of str -> ndarray, shape (..., PROFILE_POINTS)
+            ``"rho"`` (log10 g cm^-3) and ``"t"`` (log10 K); NaN where
+            :meth:`interpolate` gives NaN or the grid carries no profiles.
+        """
+        shape, lower, weights, fe, good = self._locate(mass, z, eep)
+        out = {}
+        for name in PROFILE_QUANTITIES:
+            if self.profiles is None:
+                out[name] = np.full(shape + (PROFILE_POINTS,), np.nan)
+                continue
+            at_lo, at_hi = self._blend(self._filled[_PROFILE_KEY + name], lower, weights, fe)
+            value = at_lo + fe[:, None] * (at_hi - at_lo)
+            out[name] = np.where(good[:, None], value, np.nan).reshape(shape + (PROFILE_POINTS,))
+        return out
+
+    def _locate(self, mass, z, eep):
+        """Broadcast shape, flat lower-EEP offsets (4, n), weights (4, n), EEP fraction, good flag."""
         mass, z, eep = np.broadcast_arrays(np.asarray(mass, dtype=float),
                                            np.asarray(z, dtype=float),
                                            np.asarray(eep, dtype=float))
@@ -329,27 +452,28 @@ class TrackGrid:
         used = weights > 0
         valid = (np.all(~used | self._valid[lower], axis=0)
                  & (np.all(~used | self._valid[lower + 1], axis=0) | (fe == 0)))
-        good = inside & valid
-        out = {}
-        for name in columns:
-            if name == PHASE_CODE_COLUMN:
-                out[name] = self._nearest_phase_code(lower, weights, fe, good).reshape(shape)
-                continue
-            table = self._filled[name]
-            at_lo = np.einsum("ij,ij->j", weights, table[lower])
-            at_hi = np.einsum("ij,ij->j", weights, table[lower + 1])
-            if name == "age_myr":
-                at_lo = np.where(e0 == 0, 0.0, 10.0 ** at_lo)
-                at_hi = 10.0 ** at_hi
-            out[name] = np.where(good, at_lo + fe * (at_hi - at_lo), np.nan).reshape(shape)
-        return out
+        return shape, lower, weights, fe, inside & valid
 
-    def _nearest_phase_code(self, lower, weights, fe, good):
-        """kstar of the nearest grid point (largest corner weight, nearest EEP)."""
+    @staticmethod
+    def _blend(table, lower, weights, fe):
+        """Weighted corner values at the lower and upper EEP (corners of zero weight ignored)."""
+        used = weights > 0
+        if table.ndim == 1:
+            lo = np.where(used, table[lower], 0.0)
+            hi = np.where(used & (fe > 0), table[lower + 1], 0.0)
+            return np.einsum("ij,ij->j", weights, lo), np.einsum("ij,ij->j", weights, hi)
+        lo = np.where(used[..., None], table[lower], 0.0)
+        hi = np.where((used & (fe > 0))[..., None], table[lower + 1], 0.0)
+        return np.einsum("ij,ijk->jk", weights, lo), np.einsum("ij,ijk->jk", weights, hi)
+
+    def _nearest_code(self, name, lower, weights, fe, good):
+        """Integer code (kstar, envelope quality) of the nearest grid point (largest corner
+        weight, nearest EEP)."""
         corner = np.argmax(weights, axis=0)
         flat = lower[corner, np.arange(corner.size)] + (fe >= 0.5)
-        codes = self.data[PHASE_CODE_COLUMN].ravel()[flat].astype(float)
-        return np.where(good & (codes != MISSING_PHASE_CODE), codes, np.nan)
+        codes = self.data[name].ravel()[flat].astype(float)
+        phase = self.data[PHASE_CODE_COLUMN].ravel()[flat]
+        return np.where(good & (phase != MISSING_PHASE_CODE), codes, np.nan)
 
     def track(self, mass, z):
         """One track interpolated at every EEP of the grid.
@@ -420,18 +544,27 @@ class TrackGrid:
         return np.where(ok, eep, np.nan).reshape(shape)
 
 
+ENVELOPE_OUTPUTS = ("m_cz_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc", "m_li_preserved_msun",
+                    QUALITY_COLUMN)
+
+
 def convective_envelope(grid, mass, z, eep):
     """Convective-envelope properties at track points: the package's one access point.
 
     Every part of the package reads envelope properties through this function, so
-    that the source of the numbers can change in one place.  At present they are
-    cosmic's estimates for the Hurley et al. (2000) tracks, stored in the grid, and
-    crude: at the ZAMS M_cz vanishes (1e-10 M_sun) above 1.25 M_sun at every Z, later
-    on the main sequence it grows as the star cools (nonzero up to 1.3 M_sun at
-    Z = 0.003, 1.7 M_sun at Z = 0.03; measured in the built grid); on the giant
-    branch it is close to M - M_core with no radiative buffer and no RGB bump —
-    planning estimates only (SCIENCE.md §15; an envelope integration, §16, is to
-    replace them).
+    that the source of the numbers can change in one place.  In the built-in grid
+    they come from our envelope integration (SCIENCE.md §16,
+    :mod:`prioritize.stars.envelope`) done when the grid was built: an inward
+    integration from a grey photosphere with mixing-length convection (one alpha
+    calibrated on the Sun; on the giant branch alpha solved so the envelope meets
+    the core), Saha EOS and OPAL + Ferguson opacities.  Here they are only
+    interpolated (log of the values, trilinear in mass, log Z and EEP).  Planning
+    estimates: ~5 % in T_bcz and ~10-20 % in M_cz for the Sun, plus the
+    interpolation errors measured in ``tests/test_grid_envelope.py``.
+
+    A grid or user table without the envelope columns (an older grid file, a table
+    of tracks without them) gives NaN for everything but ``m_cz_msun`` and quality
+    ``TRACK_QUALITY_NOT_COMPUTED`` (7).
 
     Parameters
     ----------
@@ -443,18 +576,143 @@ def convective_envelope(grid, mass, z, eep):
     Returns
     -------
     dict of str -> ndarray
-        ``m_cz_msun``: convective-envelope mass (M_sun); ``r_cz_rsun``: its radial
-        thickness R - r_bcz (R_sun); ``r_bcz_rsun``: radius of its base (R_sun).
-        NaN outside the grid.
+        ``m_cz_msun``: outer convective-envelope mass (M_sun); ``r_bcz_rsun``,
+        ``t_bcz_k``, ``rho_bcz_gcc``: radius (R_sun), temperature (K) and density
+        (g cm^-3) at its base; ``m_li_preserved_msun``: mass above the 2.5 MK
+        isotherm (M_sun); ``envelope_quality``: code of the nearest grid point
+        (:data:`prioritize.stars.envelope.TRACK_QUALITY_MEANINGS`), as float.  NaN
+        outside the grid.
 
     References
     ----------
-    Hurley, Pols & Tout 2000, MNRAS 315, 543; Hurley, Tout & Pols 2002, MNRAS 329, 897
-    (envelope mass and depth used for tides).
+    Kippenhahn, Weigert & Weiss 2012, *Stellar Structure and Evolution*, ch. 7, 10-11;
+    Böhm-Vitense 1958, Z. Astrophys. 46, 108; Iglesias & Rogers 1996, ApJ 464, 943;
+    Ferguson et al. 2005, ApJ 623, 585; Hurley, Pols & Tout 2000, MNRAS 315, 543.
     """
-    cols = grid.interpolate(mass, z, eep, columns=["m_cz_msun", "r_cz_rsun", "logr"])
-    return {"m_cz_msun": cols["m_cz_msun"], "r_cz_rsun": cols["r_cz_rsun"],
-            "r_bcz_rsun": np.asarray(10.0 ** cols["logr"] - cols["r_cz_rsun"])}
+    return grid.interpolate(mass, z, eep, columns=ENVELOPE_OUTPUTS)
+
+
+def envelope_profile(grid, mass, z, eep):
+    """Density and temperature of the convective envelope at 16 depths (planet disruption).
+
+    The depths are evenly spaced in ln r from the photosphere to the base of the
+    outer convective envelope, r_k = R (r_bcz/R)^(f_k), f_k = k/15
+    (:data:`PROFILE_DEPTH_FRACTIONS`); rho and T come from the envelope integration
+    stored in the grid, interpolated in log.  Planning estimates (see
+    :func:`convective_envelope`); stored to 0.46 % (:data:`PROFILE_LOG_STEP_DEX`).
+
+    Parameters
+    ----------
+    grid : TrackGrid
+        The track grid.
+    mass, z, eep : array_like
+        Initial mass (M_sun), metal mass fraction, fractional EEP; broadcastable.
+
+    Returns
+    -------
+    dict of str -> ndarray, shape (..., 16)
+        ``r_rsun`` (R_sun), ``rho_gcc`` (g cm^-3), ``t_k`` (K); NaN outside the
+        grid or where the grid carries no envelope profiles.
+
+    References
+    ----------
+    Kippenhahn, Weigert & Weiss 2012, ch. 10-11; SCIENCE.md §12 and §16.
+    """
+    cols = grid.interpolate(mass, z, eep, columns=["logr", "r_bcz_rsun"])
+    prof = grid.profile(mass, z, eep)
+    radius = 10.0 ** cols["logr"][..., None]
+    r_rsun = radius * (cols["r_bcz_rsun"][..., None] / radius) ** PROFILE_DEPTH_FRACTIONS
+    return {"r_rsun": r_rsun, "rho_gcc": 10.0 ** prof["rho"], "t_k": 10.0 ** prof["t"]}
+
+
+def rgb_bump_eep(grid, mass, z):
+    """Fractional EEP of the RGB bump of the track of (initial mass, Z).
+
+    Each grid track stores its bump: the giant-branch point where the core mass
+    reaches the deepest mass coordinate mixed by the convective envelope during
+    first dredge-up, M_core = min(M - M_cz) (SCIENCE.md §16; interpolated in core
+    mass between EEPs).  Between tracks the bump EEP is interpolated linearly in
+    mass and log Z; giant-branch EEPs are equal steps in log L from the base to the
+    tip, so this interpolates the bump's fractional position in log L.  Planning
+    estimate: the bump luminosity depends on the depth of first dredge-up, which
+    the envelope model makes ~0.02 M_sun too deep for low-mass stars (log L of the
+    bump ~0.3 dex low at 0.8-1.0 M_sun; see ``tests/test_grid_envelope.py``).
+
+    Parameters
+    ----------
+    grid : TrackGrid
+        The track grid.
+    mass, z : array_like
+        Initial mass (M_sun), metal mass fraction; broadcastable.
+
+    Returns
+    -------
+    ndarray
+        Fractional EEP (giant branch, 280-479), NaN outside the grid, where a
+        neighbouring track has no bump (helium ignites first, above ~2.2 M_sun) or
+        where the grid carries no bump column.
+
+    References
+    ----------
+    Kippenhahn, Weigert & Weiss 2012, ch. 32-33; Christensen-Dalsgaard 2015, MNRAS
+    453, 666.
+    """
+    mass, z = np.broadcast_arrays(np.asarray(mass, dtype=float), np.asarray(z, dtype=float))
+    shape = mass.shape
+    offsets, weights, inside = grid._corners(mass.ravel(), z.ravel())
+    bumps = grid.data[BUMP_COLUMN].ravel()[offsets]
+    used = weights > 0
+    ok = inside & np.all(~used | np.isfinite(bumps), axis=0)
+    value = np.einsum("ij,ij->j", weights, np.where(used, bumps, 0.0))
+    return np.where(ok, value, np.nan).reshape(shape)
+
+
+def _columns_from_arrays(columns, source):
+    """Scalar data columns and profiles (log10) from a dict of flat column arrays."""
+    missing = [c for c in KEY_COLUMNS + DATA_COLUMNS if c not in columns]
+    if missing:
+        raise CatalogError(f"a track table needs columns {list(KEY_COLUMNS + DATA_COLUMNS)}; "
+                           f"missing {missing} (see prioritize.stars.tracks.TRACK_COLUMNS for "
+                           f"units)", path=source)
+    present = [c for c in PROFILE_COLUMNS if c in columns]
+    if present and len(present) != len(PROFILE_COLUMNS):
+        raise CatalogError(f"a track table with envelope profiles needs all of {PROFILE_COLUMNS[0]}.."
+                           f"{PROFILE_COLUMNS[-1]}; missing "
+                           f"{[c for c in PROFILE_COLUMNS if c not in columns]}", path=source)
+    return [c for c in (*DATA_COLUMNS, *ENVELOPE_COLUMNS) if c in columns], bool(present)
+
+
+def _grid_from_arrays(columns, provenance, source):
+    """TrackGrid from flat column arrays (one value per row); rows in any order."""
+    names, with_profiles = _columns_from_arrays(columns, source)
+    z_all = np.asarray(columns["z"], dtype=float)
+    m_all = np.asarray(columns["initial_mass_msun"], dtype=float)
+    eep = np.asarray(columns["eep"])
+    masses, z = np.unique(m_all), np.unique(z_all)
+    shape = (z.size, masses.size, N_EEPS)
+    expected = np.tile(np.arange(N_EEPS), z.size * masses.size)
+    in_order = (eep.size == expected.size and np.array_equal(eep, expected)
+                and np.all((np.diff(z_all) > 0) | ((np.diff(z_all) == 0) & (np.diff(m_all) >= 0))))
+    order = None
+    if not in_order:
+        order = np.lexsort((eep, m_all, z_all))
+        z_all, m_all, eep = z_all[order], m_all[order], eep[order]
+    if eep.size != np.prod(shape) or not np.array_equal(eep, expected):
+        raise CatalogError(f"a track table must hold EEPs 0..{N_EEPS - 1} (layout PHASE_EEPS) for "
+                           f"every pair of its {masses.size} masses and {z.size} metallicities; "
+                           f"found {eep.size} rows instead of {int(np.prod(shape))}", path=source)
+
+    def column(name):
+        values = np.asarray(columns[name])
+        return (values if order is None else values[order]).reshape(shape)
+
+    data = {name: column(name) for name in names}
+    profiles = None
+    if with_profiles:
+        profiles = {q: np.stack([column(profile_column(q, k)) for k in range(PROFILE_POINTS)], axis=-1)
+                    .astype(np.float32) * np.float32(PROFILE_LOG_STEP_DEX) for q in PROFILE_QUANTITIES}
+    return TrackGrid(masses=masses, z=z, eeps=np.arange(N_EEPS), data=data, profiles=profiles,
+                     provenance=dict(provenance or {"source": source}))
 
 
 def grid_from_table(table, provenance=None, source="track table"):
@@ -463,8 +721,10 @@ def grid_from_table(table, provenance=None, source="track table"):
     Parameters
     ----------
     table : pandas.DataFrame
-        Columns :data:`KEY_COLUMNS` and :data:`TRACK_COLUMNS`; every (z, initial
-        mass) pair must have all EEPs 0 .. N_EEPS-1.
+        Columns :data:`KEY_COLUMNS` and :data:`TRACK_COLUMNS`, optionally any of
+        :data:`ENVELOPE_COLUMNS` and all of :data:`PROFILE_COLUMNS` (int16 multiples
+        of :data:`PROFILE_LOG_STEP_DEX` in log10); every (z, initial mass) pair
+        must have all EEPs 0 .. N_EEPS-1.  Rows in any order.
     provenance : dict, optional
         Stored on the grid.
     source : str
@@ -479,24 +739,7 @@ def grid_from_table(table, provenance=None, source="track table"):
     CatalogError
         If columns are missing or the table is not a complete rectangular grid.
     """
-    missing = [c for c in KEY_COLUMNS + DATA_COLUMNS if c not in table.columns]
-    if missing:
-        raise CatalogError(f"a track table needs columns {list(KEY_COLUMNS + DATA_COLUMNS)}; "
-                           f"missing {missing} (see prioritize.stars.tracks.TRACK_COLUMNS for "
-                           f"units)", path=source)
-    table = table.sort_values(["z", "initial_mass_msun", "eep"])
-    masses = np.unique(table["initial_mass_msun"].to_numpy(dtype=float))
-    z = np.unique(table["z"].to_numpy(dtype=float))
-    shape = (z.size, masses.size, N_EEPS)
-    eep = table["eep"].to_numpy()
-    expected = np.tile(np.arange(N_EEPS), z.size * masses.size)
-    if len(table) != np.prod(shape) or not np.array_equal(eep, expected):
-        raise CatalogError(f"a track table must hold EEPs 0..{N_EEPS - 1} (layout PHASE_EEPS) for "
-                           f"every pair of its {masses.size} masses and {z.size} metallicities; "
-                           f"found {len(table)} rows instead of {int(np.prod(shape))}", path=source)
-    data = {c: table[c].to_numpy().reshape(shape) for c in DATA_COLUMNS}
-    return TrackGrid(masses=masses, z=z, eeps=np.arange(N_EEPS), data=data,
-                     provenance=dict(provenance or {"source": source}))
+    return _grid_from_arrays({c: table[c].to_numpy() for c in table.columns}, provenance, source)
 
 
 @functools.lru_cache(maxsize=4)
@@ -507,7 +750,10 @@ def load_grid(path=None):
     ----------
     path : str or path-like, optional
         A Parquet file in the long format of :func:`grid_from_table`.  Default: the
-        grid shipped with the package (Hurley et al. 2000 fits, see its provenance).
+        grid shipped with the package (Hurley et al. 2000 fits with our envelope
+        integration, see its provenance).  Older grid files without the envelope
+        columns still load (envelope NaN except M_cz).  Users' own tracks in other
+        formats: :func:`prioritize.stars.track_sources.load_tracks`.
 
     Returns
     -------
@@ -527,10 +773,18 @@ def load_grid(path=None):
     else:
         source = Path(path)
     try:
-        table = pq.read_table(source)
+        table = pq.ParquetFile(source).read()
     except (OSError, ValueError) as exc:
         raise CatalogError(f"cannot read the track grid as Parquet ({exc}); give a Parquet file "
                            f"with columns {list(KEY_COLUMNS + DATA_COLUMNS)}", path=str(source)) from exc
     meta = table.schema.metadata or {}
     provenance = json.loads(meta[PROVENANCE_METADATA_KEY]) if PROVENANCE_METADATA_KEY in meta else {"source": str(source)}
-    return grid_from_table(table.to_pandas(), provenance=provenance, source=str(source))
+    columns = {name: _arrow_to_numpy(table.column(name)) for name in table.column_names}
+    return _grid_from_arrays(columns, provenance, str(source))
+
+
+def _arrow_to_numpy(column):
+    """A Parquet column as a numpy array (nulls as NaN)."""
+    if column.null_count:
+        return column.to_numpy(zero_copy_only=False).astype(float)
+    return column.to_numpy()
