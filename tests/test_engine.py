@@ -172,3 +172,29 @@ def test_reference_population_sets_the_baseline(tmp_path):
     assert out.loc["in", "baseline_source"].startswith("reference")
     assert abs(out.loc["in", "a_li_base"] - 1.3) < 0.05
     assert out.loc["out", "baseline_source"] == "prior (no reference coverage)"
+
+
+def test_envelope_burning_and_deposition_enter_the_chain():
+    """The grid's envelope reaches the output; a planet that survives to the envelope base
+    under ram pressure (Jia & Spruit 2018) adds less lithium than full mixing."""
+    rows = pd.DataFrame([
+        {"star_id": "giant", "mass_msun": 1.2, "mass_msun_err": 0.0, "stage": "lower_giant_branch",
+         "teff_k": 4800, "teff_k_err": 0.0, "feh": 0.0, "g_mag": 9.0, "bp_rp": 1.1},
+        {"star_id": "dwarf", "mass_msun": 1.0, "mass_msun_err": 0.0, "stage": "main_sequence",
+         "feh": 0.0, "g_mag": 9.0, "bp_rp": 0.8},
+    ])
+    table = validate_catalog(rows)
+    full = run_batch(table, Config()).set_index("star_id")
+    ram = run_batch(table, with_overrides(Config(), {"planet.deposition": "ram-pressure"})).set_index("star_id")
+    g = full.loc["giant"]
+    # lower giant branch: base of the envelope at 2.5-4.5 MK (SCIENCE §16; envelope tests)
+    assert 2.5e6 < g["t_bcz_k"] < 4.5e6 and 0 < g["r_bcz_rsun"] < g["radius_rsun"]
+    assert g["li_burning_timescale_myr"] > 0
+    assert (full["deposited_fraction_full"] == 1.0).all()
+    for star in ("giant", "dwarf"):
+        f = ram.loc[star, "deposited_fraction_ram_pressure"]
+        assert 0.0 <= f <= 1.0
+        assert ram.loc[star, "z_enrich"] <= full.loc[star, "z_enrich"] + 1e-9
+        assert ram.loc[star, "deposition_scenario"] == "ram-pressure"
+    assert set(full["lifetime_end"]) <= {"dilution", "burning", "rgb_bump", "end_of_track",
+                                         "below_threshold", "past_rgb_bump"}
