@@ -102,6 +102,9 @@ def rank(
     instrument: Optional[str] = typer.Option(None, "--instrument",
                                              help="Instrument preset (echelle-2m, echelle-4m, "
                                                   "echelle-8m) or a TOML file."),
+    tracks: Optional[Path] = typer.Option(None, "--tracks", exists=True,
+                                          help="Your own stellar tracks: a track table in our format "
+                                               "or MESA history file(s) (see DEVELOPERS.md)."),
     rapid_only: bool = typer.Option(False, "--rapid-only",
                                     help="Keep only rapid or anomalous rotators in the ranking; the "
                                          "rest are written with status not_anomalous_rotator."),
@@ -119,6 +122,7 @@ def rank(
         "planet.mass_mjup": masses[0] if masses else None,
         "planet.extra_masses_mjup": masses[1:] if masses else None,
         "rotation.rapid_only": True if rapid_only else None,
+        "run.tracks": str(tracks) if tracks else None,
         "thresholds.z_signature": z_threshold,
         "scoring.seed": seed, "run.top": top, "observing.instrument": instrument,
         "baseline.source": "reference" if reference else None,
@@ -161,7 +165,8 @@ def explain(
         raise PrioritizeError(f"star '{star_id}' is not in {catalog}"
                               + (f"; did you mean: {', '.join(near)}" if near else ""))
     one = table.iloc[hit[:1]]
-    row = run_batch(one, cfg).iloc[0]
+    from .engine import configured_grid
+    row = run_batch(one, cfg, configured_grid(cfg)).iloc[0]
     typer.echo(explain_text(one.iloc[0], row, cfg))
 
 

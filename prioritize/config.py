@@ -117,6 +117,8 @@ class RunConfig:
     """Batching."""
 
     batch_size: int = _spec(20000, lo=100, hi=10_000_000, doc="stars per batch")
+    tracks: str = _spec("", doc="your own stellar tracks (our track table or MESA history files); "
+                                "empty: the built-in grid")
     top: int = _spec(15, lo=0, hi=10_000, doc="rows shown in the terminal table")
 
 

@@ -740,10 +740,18 @@ def load_baseline_reference(cfg: Config):
                           feh_step=b.feh_step or None, min_count=b.min_count)
 
 
+def configured_grid(cfg: Config) -> TrackGrid:
+    """The user's tracks when the config names them (``run.tracks``), else the built-in grid."""
+    if cfg.run.tracks:
+        from .stars.track_sources import load_tracks
+        return load_tracks(cfg.run.tracks)
+    return load_grid()
+
+
 def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
                progress=None) -> pd.DataFrame:
     """Run the chain over batches and return the ranked table (every input row)."""
-    grid = grid or load_grid()
+    grid = grid or configured_grid(cfg)
     reference = load_baseline_reference(cfg)
     size = cfg.run.batch_size
     parts = []

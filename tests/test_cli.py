@@ -91,3 +91,35 @@ def test_night_plan_from_a_ranked_table(catalog, tmp_path):
                                  "-o", str(plan)])
     assert result.exit_code == 0, result.output
     assert set(pd.read_csv(plan)["star_id"]) == {"a", "b"}
+
+
+def test_rank_with_user_tracks(tmp_path):
+    """--tracks swaps the built-in grid for the user's own track table (our format)."""
+    import numpy as np
+
+    from prioritize.constants import TEFF_SUN_K
+    from prioritize.stars.tracks import feh_to_z, load_grid
+
+    grid = load_grid()
+    names = {1: "ms", 2: "sg", 3: "rgb", 4: "cheb"}
+    frames = []
+    for mass in (1.0, 1.2, 1.4):
+        track = grid.track(mass, float(feh_to_z(0.0)))
+        ok = track["kstar"] >= 0
+        frames.append(pd.DataFrame({
+            "initial_mass_msun": mass, "feh": 0.0, "age_myr": track["age_myr"][ok],
+            "l_lsun": 10 ** track["logl"][ok],
+            "teff_k": TEFF_SUN_K * 10 ** (0.25 * (track["logl"][ok] - 2 * track["logr"][ok])),
+            "core_mass_msun": track["core_mass_msun"][ok], "mass_msun": track["mass_msun"][ok],
+            "phase": [names[k] for k in track["kstar"][ok].astype(int)],
+            "m_cz_msun": track["m_cz_msun"][ok]}))
+    tracks = tmp_path / "my_tracks.csv"
+    pd.concat(frames).to_csv(tracks, index=False)
+    catalog = tmp_path / "c.csv"
+    pd.DataFrame([{"star_id": "x", "mass_msun": 1.1, "stage": "subgiant", "feh": 0.0,
+                   "g_mag": 9.0, "bp_rp": 0.9}]).to_csv(catalog, index=False)
+    out = tmp_path / "r.csv"
+    result = runner.invoke(app, ["rank", str(catalog), "--tracks", str(tracks), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    row = pd.read_csv(out).iloc[0]
+    assert row["status"] == "ok" and 1.0 < row["mass_msun"] < 1.2 and np.isfinite(row["m_cz_msun"])
