@@ -311,3 +311,11 @@ def test_validation_of_a_hundred_thousand_rows():
     assert out["status"].iloc[7] == status.DUPLICATE_ID
     assert (out["status"] == status.INVALID_VALUE).sum() == len(bad_teff) - (7 in bad_teff)
     assert (out["status"] == status.OK).sum() == n - len(bad_teff) - (7 not in bad_teff)
+
+
+def test_blank_stage_text_is_missing_not_invalid():
+    """An empty or blank stage string (as written by pandas or spreadsheets) means no stage."""
+    table = validate_catalog(pd.DataFrame({"star_id": ["a", "b"], "teff_k": [5000.0, 5000.0],
+                                           "logl_lsun": [0.5, 0.5], "stage": ["", "  "]}))
+    assert list(table["status"]) == ["ok", "ok"]
+    assert table["stage"].isna().all()

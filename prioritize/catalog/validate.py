@@ -324,6 +324,8 @@ def normalise_stage(text) -> str | None:
 
 
 def _check_stage(column: pd.Series, notes: _Notes) -> pd.Series:
+    # blank text is a missing stage, as an empty CSV cell would be
+    column = column.where(~column.astype(str).str.strip().eq(""), np.nan)
     codes, uniques = pd.factorize(column, use_na_sentinel=True)
     canonical = np.array([normalise_stage(u) for u in uniques] + [None], dtype=object)
     mapped = canonical[codes]                      # code -1 (missing) -> the trailing None
