@@ -58,7 +58,8 @@ OUTPUT_COLUMNS = [
     "deposited_fraction_ram_pressure", "deposited_fraction_virial", "disruption_radius_ram_rsun",
     "disruption_radius_virial_rsun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
-    "p_detect", "lifetime_myr", "lifetime_end", "lifetime_weight", "m_planet_min_mjup",
+    "p_detect", "lifetime_myr", "lifetime_p16_myr", "lifetime_p84_myr", "lifetime_end",
+    "lifetime_weight", "m_planet_min_mjup",
     "z_observed", "z_observed_is_limit", "m_planet_needed_mjup",
     "veq_kms", "veq_expected_kms", "veq_expected_spread_kms", "rot_expect_source",
     "rot_anomaly_sigma", "rapid_rotator", "m_planet_spin_mjup", "spin_li_consistency",
@@ -430,6 +431,8 @@ def _run_batch(df, cfg, grid, rng, reference):
         r = np.arange(idx.size)
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
                                m_cz_ms[r, rep], cfg, composition, reference, deposit[r, rep])
+        life_lo, life_hi = _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition,
+                                            reference, deposit)
         env = convective_envelope(grid, mass[r, rep], z[r, rep], eep[r, rep])
         tau = _surface_burning_time_yr(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz[r, rep])
         res = {
@@ -448,6 +451,7 @@ def _run_batch(df, cfg, grid, rng, reference):
             "z_enrich": z_med, "z_enrich_err": np.nanstd(zs, axis=1),
             "p_detect": np.mean(zs >= cfg.thresholds.z_signature, axis=1),
             "lifetime_myr": life, "lifetime_end": end,
+            "lifetime_p16_myr": life_lo, "lifetime_p84_myr": life_hi,
             "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
             "dilution_dex": li["dilution"][r, rep],
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
@@ -461,7 +465,8 @@ def _run_batch(df, cfg, grid, rng, reference):
         }
     for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
                 "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
-                "p_detect", "lifetime_myr", "teff_zams_k", "a_li_main_sequence", "dilution_dex"):
+                "p_detect", "lifetime_myr", "lifetime_p16_myr", "lifetime_p84_myr", "teff_zams_k",
+                "a_li_main_sequence", "dilution_dex"):
         out[col] = _scatter(n, idx, res.get(col), float)
     for col in ("stage", "lifetime_end"):
         out[col] = _scatter(n, idx, res.get(col), object)
@@ -506,6 +511,24 @@ def _run_batch(df, cfg, grid, rng, reference):
         passthrough[f"input_{c}"] = df[c].to_numpy()
     other = [c for c in out.columns if _is_other_planet_column(c)]
     return pd.concat([out[OUTPUT_COLUMNS + other], passthrough.reset_index(drop=True)], axis=1)
+
+
+def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition, reference, deposit):
+    """Lifetimes of the samples at the 16th and 84th percentiles of z (the spread the
+    placement uncertainty gives); zero where no sample reaches the threshold."""
+    n = mass.shape[0]
+    lo, hi = np.zeros(n), np.zeros(n)
+    some = np.nanmax(np.where(np.isfinite(zs), zs, -np.inf), axis=1) >= cfg.thresholds.z_signature
+    rows = np.flatnonzero(some)
+    for q, target in ((0.16, lo), (0.84, hi)):
+        if rows.size == 0:
+            break
+        zq = np.nanquantile(zs[rows], q, axis=1)
+        pick = np.nanargmin(np.abs(np.where(np.isfinite(zs[rows]), zs[rows], np.inf) - zq[:, None]), axis=1)
+        target[rows], _ = _lifetimes(grid, mass[rows, pick], z[rows, pick], eep[rows, pick],
+                                     m_cz_max[rows, pick], m_cz_ms[rows, pick], cfg, composition,
+                                     reference, deposit[rows, pick])
+    return lo, hi
 
 
 def _is_other_planet_column(name: str) -> bool:

@@ -72,6 +72,17 @@ def test_physics_consistency(table):
     # z is the median over the samples; the row's ΔA comes from the sample nearest that median
     np.testing.assert_allclose(ok["delta_a_li"] / ok["a_li_scatter"], ok["z_enrich"], atol=0.05)
     assert ((ok["p_detect"] >= 0) & (ok["p_detect"] <= 1)).all()
+    # the minimum planet, mixed back in, gives exactly the threshold significance
+    thr = Config().thresholds.z_signature
+    # (infinite where the baseline + threshold lies above the planet's own A(Li): unreachable)
+    m_min = ok["m_planet_min_mjup"].to_numpy() * M_JUP_MSUN
+    reach = np.isfinite(m_min)
+    assert reach.any()
+    base, cz, sig = (ok[c].to_numpy()[reach] for c in ("a_li_base", "m_cz_msun", "a_li_scatter"))
+    z_back = (enriched_abundance(base, cz, m_min[reach], comp) - base) / sig
+    np.testing.assert_allclose(z_back, thr, rtol=1e-9)
+    assert (ok["a_li_base"].to_numpy()[~reach] + thr * ok["a_li_scatter"].to_numpy()[~reach] >= comp.a_li).all()
+    assert (ok["lifetime_p16_myr"] >= 0).all() and (ok["lifetime_p84_myr"] >= 0).all()
     by_id = ok.set_index("star_id")
     assert by_id.loc["subgiant", "teff_source"] == "catalog"
     assert by_id.loc["photometric", "teff_source"].startswith("bp_rp")

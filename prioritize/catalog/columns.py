@@ -302,6 +302,8 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("p_detect", FLOAT, "", "probability (0 to 1) that the enrichment exceeds the threshold"),
     _out("lifetime_myr", FLOAT, "Myr", "how long the enrichment stays above the threshold"),
     _out("lifetime_end", TEXT, "", "what ends the signature (e.g. burning, dilution, end of track)"),
+    _out("lifetime_p16_myr", FLOAT, "Myr", "lifetime of the placement sample at the 16th percentile of z"),
+    _out("lifetime_p84_myr", FLOAT, "Myr", "lifetime of the placement sample at the 84th percentile of z"),
     _out("lifetime_weight", FLOAT, "", "weight (0 to 1) the signature lifetime gives the priority"),
     _out("placement_method", TEXT, "", "route used to place the star on tracks (see computable_from)"),
     _out("teff_source", TEXT, "", "where teff_k came from (catalog, or the colour relation used)"),

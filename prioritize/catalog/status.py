@@ -12,11 +12,9 @@ DUPLICATE_ID = "duplicate_id"            # the same star_id appears more than on
 INVALID_VALUE = "invalid_value"          # non-numeric text or an impossible value in a column
 MISSING_INPUTS = "missing_inputs"        # not enough columns to place the star on tracks
 OUT_OF_MODEL_RANGE = "out_of_model_range"  # mass / metallicity / position the track grid cannot explain
-NOT_EVOLVED_TARGET = "not_subgiant_or_giant"  # reserved for filters that keep evolved stars only
 NOT_ANOMALOUS_ROTATOR = "not_anomalous_rotator"  # left out by the rapid-rotator filter
 
-ALL = (OK, DUPLICATE_ID, INVALID_VALUE, MISSING_INPUTS, OUT_OF_MODEL_RANGE, NOT_EVOLVED_TARGET,
-       NOT_ANOMALOUS_ROTATOR)
+ALL = (OK, DUPLICATE_ID, INVALID_VALUE, MISSING_INPUTS, OUT_OF_MODEL_RANGE, NOT_ANOMALOUS_ROTATOR)
 
 DESCRIPTIONS = {
     OK: "computed",
@@ -24,7 +22,6 @@ DESCRIPTIONS = {
     INVALID_VALUE: "a value is non-numeric or physically impossible",
     MISSING_INPUTS: "not enough inputs to place the star on stellar tracks",
     OUT_OF_MODEL_RANGE: "outside the range of the stellar track grid",
-    NOT_EVOLVED_TARGET: "not a subgiant or giant (excluded by a filter)",
     NOT_ANOMALOUS_ROTATOR: "computed, but left out by --rapid-only: rotation not anomalous or unknown",
 }
 
