@@ -116,7 +116,7 @@ class ObservingConfig:
 class RunConfig:
     """Batching."""
 
-    batch_size: int = _spec(20000, lo=100, hi=10_000_000, doc="stars per batch")
+    batch_size: int = _spec(5000, lo=100, hi=10_000_000, doc="stars per batch (bounds memory)")
     tracks: str = _spec("", doc="your own stellar tracks (our track table or MESA history files); "
                                 "empty: the built-in grid")
     top: int = _spec(15, lo=0, hi=10_000, doc="rows shown in the terminal table")

@@ -420,7 +420,12 @@ def _run_batch(df, cfg, grid, rng, reference):
         shape = (idx.size, s)
         mass, z, eep = mass.reshape(shape), z.reshape(shape), eep.reshape(shape)
         model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logr", "logg", "age_myr"])
-        dep_cols, deposit = _deposition(grid, mass, z, eep, cfg)
+        r = np.arange(idx.size)
+        # where the planet dissolves: evaluated at each star's median-EEP sample (the
+        # envelope profile is the costly part) and applied to all its samples
+        mid = np.argmin(np.abs(eep - np.median(eep, axis=1, keepdims=True)), axis=1)
+        dep_cols, deposit = _deposition(grid, mass[r, mid], z[r, mid], eep[r, mid], cfg)
+        deposit = np.repeat(deposit[:, None], s, axis=1)
         m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg,
                                                             composition, reference, deposit)
         stage_i = evolution.stage_index(eep, model["logl"], evolution.rgb_bump(grid, mass, z)[1],
@@ -428,7 +433,6 @@ def _run_batch(df, cfg, grid, rng, reference):
         zs = li["z"]
         z_med = np.nanmedian(zs, axis=1)
         rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
-        r = np.arange(idx.size)
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
                                m_cz_ms[r, rep], cfg, composition, reference, deposit[r, rep])
         life_lo, life_hi = _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition,
@@ -458,8 +462,8 @@ def _run_batch(df, cfg, grid, rng, reference):
             "model_logg": model["logg"][r, rep],
             **{k: env[k] for k in ENVELOPE_OUTPUT_COLUMNS},
             "li_burning_timescale_myr": tau / 1e6,
-            **{k: v[r, rep] for k, v in dep_cols.items()},
-            **_other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference),
+            **dep_cols,
+            **_other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, mid, cfg, reference),
             "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
                                                      columns=["logr"])["logr"],
         }
@@ -535,7 +539,7 @@ def _is_other_planet_column(name: str) -> bool:
     return name.startswith(OTHER_PLANET_PREFIXES) and name.endswith("mj")
 
 
-def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg, reference):
+def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, mid, cfg, reference):
     """z, P(z >= threshold) and lifetime for each extra planet mass of the config (each
     with its own disruption depth)."""
     cols = {}
@@ -543,7 +547,8 @@ def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, cfg,
     for m in cfg.planet.extra_masses_mjup:
         cfg_m = with_overrides(cfg, {"planet.mass_mjup": m})
         comp = planet_composition(cfg_m)
-        _, dep = _deposition(grid, mass, z, eep, cfg_m)
+        _, dep = _deposition(grid, mass[r, mid], z[r, mid], eep[r, mid], cfg_m)
+        dep = np.repeat(dep[:, None], mass.shape[1], axis=1)
         li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg_m, comp,
                          where=model, reference=reference, deposit=dep)
         life, _ = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
