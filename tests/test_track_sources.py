@@ -34,6 +34,8 @@ NODE_AGE_MS_FRACTION = 5e-4  # ... i.e. ages by up to 2.3e-4 of the main-sequenc
 MS_LOG_TOL_DEX = 2e-3        # MESA round trip on the main sequence at matched age (ZAMS moved by one row)
 GB_LOGR_TOL_DEX = 5e-3       # MESA round trip on the giant branch at matched log L (base of the RGB defined differently)
 M_CZ_REL_TOL = 0.01          # supplied M_cz at matched log L on the giant branch
+BUMP_EEP_TOL = 0.2           # the bump is where two slowly converging curves (M_core, M - M_cz) cross:
+                             # rounding the inputs to 2^-14 moves it by ~0.1 EEP (measured 0.09)
 MS = slice(*PHASE_EEPS["main_sequence"])
 GB = slice(*PHASE_EEPS["giant_branch"])
 X_INITIAL = 0.70
@@ -168,7 +170,7 @@ def test_track_table_round_trip_at_the_nodes(tmp_path, grid):
         assert np.all(np.isnan(mine.data["rho_bcz_gcc"][0, j]))       # not supplied, not computed
     bump = mine.data["rgb_bump_eep"][0, 0, 0]
     assert bump == pytest.approx(grid.data["rgb_bump_eep"][int(np.argmin(np.abs(grid.z - Z))),
-                                                           int(np.argmin(np.abs(grid.masses - 1.0))), 0], abs=0.05)
+                                                           int(np.argmin(np.abs(grid.masses - 1.0))), 0], abs=BUMP_EEP_TOL)
 
 
 def test_missing_m_cz_is_computed_with_our_integration(tmp_path, grid):

@@ -36,10 +36,10 @@ from typer.testing import CliRunner
 
 from prioritize.data import build_tracks
 from prioritize.errors import CatalogError, PrioritizeError
-from prioritize.stars.tracks import (DATA_COLUMNS, N_EEPS, OUTSIDE_PHASES, PHASE_EEPS,
-                                     PROVENANCE_METADATA_KEY, TrackGrid, convective_envelope,
-                                     feh_to_z, grid_from_table, load_grid, stage_of_eep,
-                                     z_to_feh)
+from prioritize.stars.tracks import (DATA_COLUMNS, ENVELOPE_COLUMNS, ENVELOPE_OUTPUTS, N_EEPS,
+                                     OUTSIDE_PHASES, PHASE_EEPS, PROVENANCE_METADATA_KEY, TrackGrid,
+                                     convective_envelope, feh_to_z, grid_from_table, load_grid,
+                                     stage_of_eep, z_to_feh)
 
 SUN_AGE_MYR = 4570.0                         # SCIENCE.md §15
 SUN_L_LSUN, SUN_R_RSUN, SUN_TEFF_COSMIC_K = 0.956, 0.985, 5777.0   # SCIENCE.md §15 [C]
@@ -55,7 +55,7 @@ OFF_GRID_MASSES = (1.025, 1.3125, 2.225, 3.125)
 OFF_GRID_Z = 0.0155
 INTERP_REL_TOL = 0.02                        # L, R, Teff at matched EEPs (required accuracy; measured 1.2%)
 AGE_REL_TOL = 0.03                           # ages at matched EEPs (measured 1.7%)
-STORAGE_REL_TOL = 2.0 ** -build_tracks.FLOAT32_SIGNIFICANT_BITS   # rounding of the stored floats
+STORAGE_REL_TOL = 2.0 ** -build_tracks.ENVELOPE_SIGNIFICANT_BITS  # rounding of the stored floats (the coarsest)
 NODE_REL_TOL = 1e-12                         # grid nodes: exact up to log/exp of the age
 HUBBLE_TIME_MYR = 13_800.0                   # Planck 2018 age of the Universe, from memory
 DESCENT = slice(PHASE_EEPS["core_he_burning"][0], PHASE_EEPS["core_he_burning"][0]
@@ -286,33 +286,41 @@ def test_stage_of_eep():
 
 
 def test_convective_envelope_access_point(grid):
+    """The access point returns our envelope columns, interpolated like every other column."""
     env = convective_envelope(grid, [1.0, 1.0], 0.02, [0.0, 350.0])
-    cols = grid.interpolate([1.0, 1.0], 0.02, [0.0, 350.0])
-    np.testing.assert_allclose(env["m_cz_msun"], cols["m_cz_msun"])
-    np.testing.assert_allclose(env["r_bcz_rsun"], 10 ** cols["logr"] - cols["r_cz_rsun"])
-    assert np.all((env["r_bcz_rsun"] > 0) & (env["r_bcz_rsun"] < 10 ** cols["logr"]))
+    cols = grid.interpolate([1.0, 1.0], 0.02, [0.0, 350.0], columns=ENVELOPE_OUTPUTS)
+    assert set(env) == set(ENVELOPE_OUTPUTS)
+    for name in ENVELOPE_OUTPUTS:
+        np.testing.assert_allclose(env[name], cols[name], err_msg=name)
+    radius = 10 ** grid.interpolate([1.0, 1.0], 0.02, [0.0, 350.0], columns=["logr"])["logr"]
+    assert np.all((env["r_bcz_rsun"] > 0) & (env["r_bcz_rsun"] < radius))
     assert env["m_cz_msun"][1] > 10 * env["m_cz_msun"][0]     # deep envelope on the giant branch
+    assert np.all(np.isnan(convective_envelope(grid, 5.0, 0.02, 10.0)["t_bcz_k"]))
 
 
 # --- the builder end to end and the file format ----------------------------------------------
 
 def test_tiny_build_end_to_end(tmp_path, grid):
     """Two masses at one Z through the builder's entry function: the files, their
-    provenance, and the same tracks as the shipped grid (deterministic build)."""
+    provenance, and the same tracks and envelopes as the shipped grid (deterministic
+    build: seeded cosmic runs, the same envelope integration and strides)."""
     output = tmp_path / "tiny_grid.parquet"
-    provenance = build_tracks.build(output, masses=[2.0, 1.0], z=[0.02], command="test")
+    provenance = build_tracks.build(output, masses=[2.0, 1.0], z=[0.02], command="test", workers=1)
     assert output.exists() and (tmp_path / "tiny_provenance.json").exists()
     assert json.loads((tmp_path / "tiny_provenance.json").read_text()) == provenance
     assert provenance["initial_masses_msun"] == [1.0, 2.0] and provenance["command"] == "test"
     assert provenance["run_time_s"] >= 0 and provenance["tracks_without_core_he_burning"] == []
+    assert provenance["envelope"]["alpha_solar"] == grid.provenance["envelope"]["alpha_solar"]
     tiny = load_grid(output)
     assert tiny.provenance == provenance
     iz = list(grid.z).index(0.02)
     for j, mass in enumerate((1.0, 2.0)):
         im = list(grid.masses).index(mass)
-        for column in DATA_COLUMNS:
+        for column in DATA_COLUMNS + tuple(ENVELOPE_COLUMNS):
             np.testing.assert_allclose(tiny.data[column][0, j], grid.data[column][iz, im],
                                        rtol=STORAGE_REL_TOL, err_msg=column)
+        for name in tiny.profiles:
+            np.testing.assert_array_equal(tiny.profiles[name][0, j], grid.profiles[name][iz, im])
     assert np.all(np.isfinite(tiny.interpolate(1.5, 0.02, grid.eeps, columns=["logl"])["logl"]))
     assert np.all(np.isnan(tiny.interpolate(1.5, 0.021, 10.0, columns=["logl"])["logl"]))
 

@@ -2,7 +2,7 @@
 
 Usage (needs the ``grid`` extra, i.e. ``cosmic-popsynth``)::
 
-    python -m prioritize.data.build_tracks                      # the shipped grid
+    python -m prioritize.data.build_tracks --workers 2          # the shipped grid
     python -m prioritize.data.build_tracks --output small.parquet --masses 1.0,1.5 --z 0.02
 
 Recipe (SCIENCE.md §15).  Each initial mass and metallicity is evolved as a single
@@ -41,9 +41,9 @@ the track between, one track per process (``--workers``, default all cores).  Th
 RGB bump of each track is where the core reaches the deepest point mixed by the
 envelope (:func:`prioritize.stars.envelope.rgb_bump_position`).  The provenance
 records the rm-tables version, alpha, the strides, the run times and the cores.
-Measured: the shipped grid (73 masses x 15 Z) took ~48 min with 2 worker
-processes on a 2-core machine shared with other work (~11 s of it the cosmic
-runs); ~3 s of one core per track.  Reproducible: cosmic's single-star runs draw no
+Measured: the shipped grid (73 masses x 15 Z = 1095 tracks) took 2807 s (47 min)
+with 2 worker processes on a 2-core machine shared with other work (load ~3; 13 s
+of it the cosmic runs); 3-5 s of one core per track; the file is 17.9 MB.  Reproducible: cosmic's single-star runs draw no
 random numbers (seed fixed anyway) and the integration is deterministic.
 
 This is a build tool (file I/O, clock); the run-time package reads its output

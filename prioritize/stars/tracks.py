@@ -636,7 +636,8 @@ def rgb_bump_eep(grid, mass, z):
     tip, so this interpolates the bump's fractional position in log L.  Planning
     estimate: the bump luminosity depends on the depth of first dredge-up, which
     the envelope model makes ~0.02 M_sun too deep for low-mass stars (log L of the
-    bump ~0.3 dex low at 0.8-1.0 M_sun; see ``tests/test_grid_envelope.py``).
+    bump 0.2-0.3 dex fainter than SCIENCE.md §14 at 0.8-1.0 M_sun, close at 1.4-1.6
+    M_sun; see ``tests/test_grid_envelope.py``).
 
     Parameters
     ----------
