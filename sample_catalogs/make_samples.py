@@ -184,7 +184,8 @@ def make_reference(grid, rng, n=20000) -> pd.DataFrame:
     a, s = prior_baseline(10 ** zams["logteff"], p["age_myr"] / 1e3, tams["age_myr"] / 1e3, m_cz,
                           li_preserving_mass_interim(mass), 0.35)
     a_obs = a + rng.normal(0, s)
-    limit = 1.5 - 5.0 * (5040.0 / p["teff"] - 0.87)      # rough detection limit: cooler is easier
+    # rough detection limit (cooler is easier), never below A(Li) = -0.5
+    limit = np.maximum(1.5 - 5.0 * (5040.0 / p["teff"] - 0.87), -0.5)
     is_limit = a_obs < limit
     ok = np.isfinite(a_obs)
     return pd.DataFrame({"star_id": [f"REF-{i + 1:05d}" for i in range(n)],
