@@ -198,6 +198,36 @@ def ew_li6708_mA(teff, logg, feh, a_li):
     return np.sqrt(core**2 + w_s**2 * y**2 / (y_d * (1.0 + y)))
 
 
+def a_li_for_weak_ew(teff, logg, feh, ew_mA):
+    """A(Li) whose Li 6708 line has equivalent width ``ew_mA`` in the weak-line regime.
+
+    The exact inverse of the weak-line part of :func:`ew_li6708_mA` (linear in A(Li)):
+    A = (log10 W - [c0 + c2 theta + ...]) / c1.  Accurate where W is far below the
+    saturation scale (~400-500 mA), i.e. for detection limits of a few mA; used for
+    the A(Li) below which a baseline population is a set of upper limits.
+
+    Parameters
+    ----------
+    teff, logg, feh : array_like
+        Effective temperature (K), log10 g (cgs), [Fe/H] (dex).
+    ew_mA : array_like
+        Equivalent width (mA), > 0.
+
+    Returns
+    -------
+    numpy.ndarray
+        A(Li) (dex); a planning estimate.
+
+    References
+    ----------
+    Wang E. X. et al. 2021, MNRAS 500, 2159 (the grid the fit follows).
+    """
+    teff, logg, feh, ew = _arrays(teff, logg, feh, ew_mA)
+    rest = _log_weak_ew_li6708(teff, logg, feh, np.zeros_like(teff))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return (np.log10(ew) - rest) / _WEAK["a_li"]
+
+
 def curve_of_growth_slope(teff, logg, feh, a_li):
     """Slope s = d log10 W / d A(Li) of the Li 6708 curve of growth.
 

@@ -1,8 +1,11 @@
-"""Signature lifetime bookkeeping on hand-made tracks with known answers."""
+"""Signature lifetime bookkeeping on hand-made tracks with known answers, and the
+mixing timescales that end signatures."""
 
 import numpy as np
 
-from prioritize.lithium.lifetime import signature_lifetime
+from prioritize.lithium.baseline import THERMOHALINE_DEPLETION_DEX
+from prioritize.lithium.lifetime import (ending_process, fingering_survival, signature_lifetime,
+                                         thermohaline_rate_per_myr)
 
 NAN = np.nan
 
@@ -10,21 +13,41 @@ NAN = np.nan
 def test_dilution_crossing_is_interpolated():
     age = np.array([[100.0, 110.0, 120.0, 130.0]])
     z = np.array([[6.0, 4.0, 2.0, 1.0]])  # crosses 3 halfway between 110 and 120
-    life, end = signature_lifetime(age, z, 3.0, np.array([NAN]))
-    assert life[0] == 15.0 and end[0] == "dilution"
-
-
-def test_bump_comes_first_and_past_bump_is_zero():
-    age = np.array([[100.0, 110.0, 120.0], [100.0, 110.0, 120.0]])
-    z = np.array([[6.0, 5.0, 4.0], [6.0, 5.0, 4.0]])
-    life, end = signature_lifetime(age, z, 3.0, np.array([105.0, 90.0]))
-    assert life[0] == 5.0 and end[0] == "rgb_bump"
-    assert life[1] == 0.0 and end[1] == "past_rgb_bump"
+    life, crossing, end = signature_lifetime(age, z, 3.0)
+    assert life[0] == 15.0 and crossing[0] == 2 and end[0] == "dilution"
 
 
 def test_end_of_track_and_no_signal():
     age = np.array([[100.0, 110.0, NAN], [100.0, 110.0, 120.0]])
     z = np.array([[6.0, 5.0, NAN], [2.0, 5.0, 6.0]])
-    life, end = signature_lifetime(age, z, 3.0, np.array([NAN, NAN]))
-    assert life[0] == 10.0 and end[0] == "end_of_track"
+    life, crossing, end = signature_lifetime(age, z, 3.0)
+    assert life[0] == 10.0 and end[0] == "end_of_track" and crossing[0] == -1
     assert life[1] == 0.0 and end[1] == "below_threshold"
+
+
+def test_ending_process_is_the_one_with_most_efolds():
+    end = np.array(["dilution", "dilution", "end_of_track"], dtype=object)
+    crossing = np.array([1, 1, -1])
+    losses = {"dilution": np.array([[0, 0.2], [0, 2.0], [0, 0]]),
+              "burning": np.array([[0, 1.0], [0, 0.1], [0, 5]])}
+    np.testing.assert_array_equal(ending_process(end, crossing, losses),
+                                  ["burning", "dilution", "end_of_track"])
+
+
+def test_thermohaline_rate_gives_the_bump_to_tip_depletion():
+    """Charbonnel & Zahn 2007: Li falls by ~1 dex from the bump to the tip (from memory)."""
+    rate = thermohaline_rate_per_myr(1000.0, 1050.0)
+    np.testing.assert_allclose(np.log10(np.exp(-rate * 50.0)), -THERMOHALINE_DEPLETION_DEX)
+    assert np.isnan(thermohaline_rate_per_myr(NAN, 1050.0))
+
+
+def test_fingering_survival_limits():
+    """f = 1 at engulfment; tends to M_cz/(M_cz + M_rad); no effect without a metal excess."""
+    args = dict(m_planet_msun=1e-3, planet_z=0.06, star_z=0.02, m_cz_msun=0.025, m_radiative_msun=0.9)
+    assert fingering_survival(0.0, **args) == 1.0
+    np.testing.assert_allclose(fingering_survival(1e4, **args), 0.025 / 0.925, rtol=1e-9)
+    assert fingering_survival(1e4, **{**args, "planet_z": 0.01}) == 1.0
+    # a few Myr below a thin main-sequence envelope (Théado & Vauclair 2012): half gone by 5 Myr
+    assert fingering_survival(5.0, **args) < 0.5
+    # a giant's envelope sits on almost no radiative mass: hardly any effect
+    assert fingering_survival(1e4, 1e-3, 0.06, 0.02, 0.7, 0.01) > 0.98
