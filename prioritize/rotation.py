@@ -38,6 +38,7 @@ from typing import NamedTuple
 
 import numpy as np
 from scipy.optimize import least_squares
+from scipy.stats import norm
 
 from .catalog.status import STAGE_ALIASES, STAGES
 from .constants import C_LIGHT_CGS, G_CGS, M_JUP_MSUN, M_SUN_G, R_SUN_CM
@@ -53,7 +54,6 @@ K2_SUN = 0.070
 K2_POLYTROPE_N3 = 0.075                      # radiative star (Eddington standard model)
 K2_POLYTROPE_N15 = 0.205                     # fully convective star or envelope
 K2_MAX = 2.0 / 3.0                           # thin spherical shell: the largest possible k²
-K2_EVOLVED = 0.1                             # whole-star default for subgiants and giants
 
 # Gyrochronology, P = a [(B-V)_0 - c]^b t^n, t in Myr (SCIENCE.md §11 [V]).
 BARNES2007 = {"a": (0.7725, 0.011), "b": (0.601, 0.024), "c": (0.4, 0.0), "n": (0.5189, 0.0070)}
@@ -89,13 +89,6 @@ _MS_SPREAD = np.array([0.4, 0.4, 0.3, 0.3, 0.4, 0.6, 0.6, 0.5, 0.5, 0.4, 0.4, 0.
 
 # Rotation and lithium agree when their planet masses are within this factor.
 SPIN_LI_AGREEMENT_FACTOR = 3.0
-# Engulfment prior: odds that a star recently swallowed a planet, before its rotation is
-# looked at.  At most the rapid-rotator fraction of giants (2%), since binaries and
-# mergers also make rapid rotators; the shift is the anomaly (sigma) a typical
-# engulfment produces (1-2 km/s for a hot Jupiter, SCIENCE §11, against ~1 km/s spreads).
-ENGULFMENT_BASE_ODDS = 0.02
-ENGULFMENT_SHIFT_SIGMA = 2.0
-OTHER_CAUSE_FRACTION = 0.05
 
 
 # --------------------------------------------------------------------------- helpers
@@ -416,146 +409,6 @@ def ms_rotation_velocity_kms(mass_msun):
     return np.where(inside, veq, np.nan), np.where(inside, spread, np.nan)
 
 
-def expected_veq_conserved(mass_msun, radius_rsun, radius_ms_rsun, k2_now, k2_ms):
-    """Expected v_eq of an evolved (or hot) star from angular-momentum conservation.
-
-    Solid-body rotation of the whole star, J = k² M R² Ω = k² M R v_eq, conserved
-    from the main sequence (no wind loss, no core-envelope decoupling):
-
-        v_now = v_MS(M) (k²_MS R_MS) / (k²_now R_now),
-
-    with v_MS from :func:`ms_rotation_velocity_kms`.  The spread is that of v_MS,
-    scaled the same way.  Magnetic braking after the main sequence (cool subgiants and
-    giants) makes the true value lower; a star rotating faster than this is anomalous
-    with more confidence than one rotating slower.
-
-    Parameters
-    ----------
-    mass_msun : array_like
-        Stellar mass (M_sun), 0.7-3.5; NaN outside.
-    radius_rsun : array_like
-        Present radius (R_sun).
-    radius_ms_rsun : array_like
-        Radius near the end of the main sequence, where v_MS applies (R_sun; from the
-        tracks).
-    k2_now, k2_ms : array_like
-        k² = I/(M R²) now and on the main sequence: Sun 0.070, n = 3 polytrope 0.075,
-        n = 1.5 polytrope 0.205, giants ~0.1-0.2 (SCIENCE.md §11 [from memory]).
-
-    Returns
-    -------
-    veq_kms, spread_kms : ndarray
-        Expected v_eq and its 1σ spread (km/s); planning estimates.
-
-    References
-    ----------
-    SCIENCE.md §11; Kippenhahn, Weigert & Weiss, *Stellar Structure and Evolution*
-    (moments of inertia of polytropes).
-    """
-    func = "expected_veq_conserved"
-    radius = _positive("radius_rsun", func, radius_rsun)
-    radius_ms = _positive("radius_ms_rsun", func, radius_ms_rsun)
-    ratio = (_k2("k2_ms", func, k2_ms) * radius_ms) / (_k2("k2_now", func, k2_now) * radius)
-    veq_ms, spread_ms = ms_rotation_velocity_kms(mass_msun)
-    return veq_ms * ratio, spread_ms * ratio
-
-
-class ExpectedRotation(NamedTuple):
-    """Expected equatorial velocity per row (column names of the ranked table)."""
-
-    veq_expected_kms: np.ndarray
-    veq_expected_spread_kms: np.ndarray
-    rot_expect_source: np.ndarray
-
-
-def expected_rotation(stage, radius_rsun, b_v0=np.nan, age_myr=np.nan, mass_msun=np.nan,
-                      radius_ms_rsun=np.nan, k2_now=None, k2_ms=K2_POLYTROPE_N3,
-                      gyro_relation="barnes2007", intrinsic_scatter=GYRO_INTRINSIC_SCATTER,
-                      cluster_sequence=None, cluster_color=np.nan):
-    """Expected v_eq and its spread, choosing the method per row.
-
-    1. Main-sequence and turnoff stars with a cluster sequence and a colour inside its
-       range: the cluster's own sequence (``"cluster_sequence"``).
-    2. Otherwise main-sequence and turnoff dwarfs inside the gyrochronology colour range
-       with an age: v = 2πR/P_gyro, spread from the period spread (``"gyro_barnes2007"``
-       or ``"gyro_mh08"``).
-    3. Otherwise (hot dwarfs, subgiants, giants): angular-momentum conservation from the
-       typical main-sequence velocity of the mass (``"conserved_ms_rotation"``).
-    4. ``"unavailable"`` with NaN when the inputs for none of these are known.
-
-    Parameters
-    ----------
-    stage : array_like of str
-        Evolutionary stage (catalog.status.STAGES or an alias).
-    radius_rsun : array_like
-        Present radius (R_sun).
-    b_v0, age_myr : array_like
-        Dereddened B-V (mag) and age (Myr), for gyrochronology.
-    mass_msun, radius_ms_rsun : array_like
-        Mass (M_sun) and main-sequence radius (R_sun), for conservation.
-    k2_now, k2_ms : array_like
-        k² now and on the main sequence (default 0.075, n = 3 polytrope); k2_now None
-        means ``K2_EVOLVED`` (0.1) for subgiants and giants and k2_ms otherwise; see
-        :func:`expected_veq_conserved`.
-    gyro_relation : {"barnes2007", "mh08"}
-    intrinsic_scatter : float
-        Fractional gyrochronology scatter (default 0.10).
-    cluster_sequence : ClusterRotationSequence, optional
-        From :func:`fit_cluster_sequence`.
-    cluster_color : array_like
-        The colour the cluster sequence was fitted in.
-
-    Returns
-    -------
-    ExpectedRotation
-        ``veq_expected_kms``, ``veq_expected_spread_kms`` (1σ, km/s) and
-        ``rot_expect_source`` per row; planning estimates.
-
-    References
-    ----------
-    SCIENCE.md §11; see the functions named above.
-    """
-    func = "expected_rotation"
-    if gyro_relation not in GYRO_RELATIONS:
-        raise PrioritizeError(f"{func}: gyro_relation must be one of "
-                              f"{', '.join(GYRO_RELATIONS)}, got {gyro_relation!r}")
-    stages = _canonical_stage(stage, func)
-    radius = _positive("radius_rsun", func, radius_rsun)
-    shape = np.broadcast_shapes(stages.shape, radius.shape, np.shape(b_v0), np.shape(age_myr),
-                                np.shape(mass_msun), np.shape(radius_ms_rsun),
-                                np.shape(cluster_color))
-    stages = np.broadcast_to(stages, shape)
-    radius = np.broadcast_to(radius, shape)
-    dwarf = np.isin(stages, GYRO_STAGES)
-
-    veq = np.full(shape, np.nan)
-    spread = np.full(shape, np.nan)
-    source = np.full(shape, "unavailable", dtype=object)
-
-    if k2_now is None:
-        evolved = np.isin(stages, ("subgiant",) + GIANT_STAGES)
-        k2_now = np.where(evolved, K2_EVOLVED, k2_ms)
-    conserved_v, conserved_s = expected_veq_conserved(mass_msun, radius, radius_ms_rsun,
-                                                      k2_now, k2_ms)
-    conserved_v, conserved_s = (np.broadcast_to(a, shape) for a in (conserved_v, conserved_s))
-    use = np.isfinite(conserved_v)
-    veq[use], spread[use], source[use] = conserved_v[use], conserved_s[use], "conserved_ms_rotation"
-
-    def take(period, period_spread, label):
-        period = np.broadcast_to(period, shape)
-        rel = np.broadcast_to(period_spread, shape) / period
-        ok = dwarf & np.isfinite(period) & np.isfinite(radius)
-        v = equatorial_velocity_kms(radius[ok], period[ok])
-        veq[ok], spread[ok], source[ok] = v, v * rel[ok], label
-
-    age = _array("age_myr", func, age_myr)
-    age = np.where(np.isfinite(age) & (age > 0), age, np.nan)
-    take(*GYRO_RELATIONS[gyro_relation](b_v0, age, intrinsic_scatter), f"gyro_{gyro_relation}")
-    if cluster_sequence is not None:
-        take(*cluster_sequence.predict(cluster_color), "cluster_sequence")
-    return ExpectedRotation(veq, spread, source)
-
-
 # ------------------------------------------------------------------- cluster sequence
 
 @dataclass(frozen=True)
@@ -744,52 +597,6 @@ def rotation_anomaly_sigma(observed, observed_err, expected, expected_spread,
         return np.where(den > 0, num / den, np.nan)
 
 
-def rapid_rotator_flag(vsini_kms, stage, expected_veq_kms=np.nan, expected_spread_kms=np.nan,
-                       giant_threshold_kms=GIANT_RAPID_VSINI_KMS, dwarf_n_sigma=3.0):
-    """Flag rapid rotators by the trade's thresholds.
-
-    - Giants (lower/upper giant branch, red clump): v sin i >= 10 km/s, the traditional
-      threshold (Carlberg et al. 2011: ~2% of K giants; single G/K giants show 1-3 km/s).
-    - Dwarfs, turnoff stars and subgiants, whose normal rotation depends strongly on
-      mass and age: v sin i > v_exp + n σ_exp with the expectation from
-      :func:`expected_rotation` (default n = 3).  Because sin i <= 1 this is anomalous
-      at any inclination.  Without an expectation the row is not flagged.
-
-    Parameters
-    ----------
-    vsini_kms : array_like
-        Projected rotation velocity (km/s).
-    stage : array_like of str
-        Evolutionary stage (catalog.status.STAGES or an alias); missing -> not flagged.
-    expected_veq_kms, expected_spread_kms : array_like
-        Expected v_eq and its 1σ spread (km/s), for non-giants.
-    giant_threshold_kms : float
-        Giant threshold (default 10 km/s).
-    dwarf_n_sigma : float
-        Non-giant threshold in sigmas above the expectation (default 3).
-
-    Returns
-    -------
-    ndarray of bool
-
-    References
-    ----------
-    Carlberg, J. K. et al. 2011, ApJ 732, 39; Patton, R. A. et al., arXiv:2303.08151;
-    SCIENCE.md §11.
-    """
-    func = "rapid_rotator_flag"
-    vsini = _array("vsini_kms", func, vsini_kms)
-    stages = _canonical_stage(stage, func)
-    expected = _array("expected_veq_kms", func, expected_veq_kms)
-    spread = _array("expected_spread_kms", func, expected_spread_kms)
-    vsini, stages, expected, spread = np.broadcast_arrays(vsini, stages, expected, spread)
-    giant = np.isin(stages, GIANT_STAGES) & (vsini >= giant_threshold_kms)
-    other = (~np.isin(stages, GIANT_STAGES)) & (stages != "")
-    with np.errstate(invalid="ignore"):
-        fast = other & (vsini > expected + dwarf_n_sigma * spread)
-    return giant | fast
-
-
 # ----------------------------------------------------------- spin-up by engulfment
 
 def _spin_lever(func, mass_msun, radius_rsun, m_spun_msun, k2, a_rsun):
@@ -932,69 +739,6 @@ def spin_lithium_consistency(m_planet_spin, m_planet_min_li, factor=SPIN_LI_AGRE
     return out
 
 
-def engulfment_prior_odds(rot_anomaly_sigma, base_odds=ENGULFMENT_BASE_ODDS,
-                          engulfed_shift_sigma=ENGULFMENT_SHIFT_SIGMA,
-                          other_cause_fraction=OTHER_CAUSE_FRACTION):
-    """Probability of a recent engulfment given the rotation anomaly (``p_engulfed_rotation``).
-
-    Two hypotheses for the anomaly z: recent engulfment, z ~ N(μ, 1),
-    μ = ``engulfed_shift_sigma``; no engulfment, z ~ (1 - f) N(0, 1) + f N(μ, 1), where
-    the fraction f of stars spun up by something else (tidal locking in binaries,
-    mergers) shows the same anomaly.  With g = N(z; μ, 1)/N(z; 0, 1) = exp(μ z - μ²/2)
-    the likelihood ratio is LR = g / ((1 - f) + f g) and, with prior odds O,
-
-        p = O LR / (1 + O LR),
-
-    monotonic in z, equal to the prior O/(1 + O) at z = μ/2, and saturating at
-    odds O/f for large anomalies: a fast rotator is a better candidate, never a sure
-    one.  f = 0 recovers the pure logistic.  Equal widths keep it monotonic (unequal
-    ones make LR rise again for very negative z).
-    Defaults: O = 0.02, about the fraction of giants that are rapid rotators
-    (Carlberg et al. 2011), an upper bound because tidally locked binaries and mergers
-    also spin stars up; μ = 2, a hot Jupiter's 1-2 km/s spin-up against a ~1 km/s
-    expected spread (SCIENCE.md §11).  A missing z gives the prior.
-
-    Parameters
-    ----------
-    rot_anomaly_sigma : array_like
-        Rotation anomaly (sigma, positive = faster; :func:`rotation_anomaly_sigma`).
-    base_odds : float
-        Prior odds O > 0.
-    engulfed_shift_sigma : float
-        Mean anomaly μ > 0 of a recently engulfing star.
-    other_cause_fraction : float
-        f in [0, 1): fraction of non-engulfing stars with an engulfment-like anomaly
-        (default 0.05, a planning choice: binaries make up a large share of rapidly
-        rotating giants; from memory).
-
-    Returns
-    -------
-    ndarray
-        p_engulfed_rotation in [0, 1]; a planning weight, not a calibrated probability.
-
-    References
-    ----------
-    Carlberg, J. K. et al. 2011, ApJ 732, 39; SCIENCE.md §11, §20.
-    """
-    func = "engulfment_prior_odds"
-    if not (np.isfinite(base_odds) and base_odds > 0):
-        raise PrioritizeError(f"{func}: base_odds must be > 0, got {base_odds!r}")
-    if not (np.isfinite(engulfed_shift_sigma) and engulfed_shift_sigma > 0):
-        raise PrioritizeError(f"{func}: engulfed_shift_sigma must be > 0, "
-                              f"got {engulfed_shift_sigma!r}")
-    if not (0.0 <= other_cause_fraction < 1.0):
-        raise PrioritizeError(f"{func}: other_cause_fraction must be in [0, 1), "
-                              f"got {other_cause_fraction!r}")
-    z = _array("rot_anomaly_sigma", func, rot_anomaly_sigma)
-    mu = engulfed_shift_sigma
-    log_g = np.where(np.isnan(z), 0.0, mu * z - mu * mu / 2)
-    # ln LR = ln g - ln((1 - f) + f g), written to stay finite for large |ln g|
-    f = other_cause_fraction
-    log_lr = log_g - np.logaddexp(np.log1p(-f), (np.log(f) if f > 0 else -np.inf) + log_g)
-    log_odds = np.log(base_odds) + log_lr
-    return 0.5 * (1.0 + np.tanh(0.5 * log_odds))
-
-
 # ------------------------------------------------------------------ line broadening
 
 def rotational_fwhm_angstrom(vsini_kms, wavelength_angstrom=6707.8, limb_darkening=0.6):
@@ -1042,3 +786,288 @@ def rotational_fwhm_angstrom(vsini_kms, wavelength_angstrom=6707.8, limb_darkeni
     const = (1 - eps) + np.pi * eps / 4
     s_half = 2 * const / (lin + np.sqrt(lin * lin + 4 * quad * const))
     return 2 * np.sqrt(1 - s_half ** 2) * wavelength * vsini / C_KMS
+
+
+# ------------------------------------------------------- rotation evidence (likelihood)
+
+GRID_VELOCITY_KMS = np.geomspace(0.05, 600.0, 140)     # integration grid for v_eq and v sin i
+_LN_STEP = np.log(GRID_VELOCITY_KMS[1] / GRID_VELOCITY_KMS[0])
+_SIN_I = np.sqrt(1.0 - ((np.arange(10) + 0.5) / 10) ** 2)   # random orientations: cos i uniform
+# Quantiles of the age posterior for gyrochronology, denser in the tails so the young
+# end (where fast dwarfs belong) is represented; weights are the probability between
+# the midpoints of neighbouring quantiles.
+AGE_QUANTILES = np.array([0.005, 0.02, 0.06, 0.15, 0.3, 0.5, 0.75, 0.93])
+_EDGES = np.concatenate([[0.0], 0.5 * (AGE_QUANTILES[1:] + AGE_QUANTILES[:-1]), [1.0]])
+AGE_WEIGHTS = np.diff(_EDGES)
+AGE_NODES = AGE_QUANTILES.size
+AGE_CLIP_MYR = (50.0, 13800.0)
+GYRO_COLOR_RANGE = (0.5, 1.6)                  # stay clear of Barnes' divergence at (B-V)_0 = 0.4
+KRAFT_BREAK_TEFF_K = 6250.0                    # above it no magnetic braking (Kraft 1967, ApJ 150, 551)
+# Evolved stars (post-main-sequence braking): cool G/K subgiants, giants and clump stars rotate
+# at v sin i ~1-5 km/s (de Medeiros & Mayor 1999, A&AS 139, 433; Carlberg et al. 2011: >= 10
+# km/s in ~2% of giants, many of them binaries); hot subgiants keep part of their main-sequence
+# rotation until they cross the rotational divide near G0 IV-III (Gray 1989, ApJ 347, 1021),
+# and stars above the Kraft break brake quickly once they leave the main sequence (Sussholz,
+# Mazeh & Faigler 2026, arXiv:2601.20008).  Values from memory.
+EVOLVED_COOL_VEQ_KMS = 2.5
+EVOLVED_COOL_LN_WIDTH = 0.45
+EVOLVED_DIVIDE_TEFF_K = (5600.0, 6300.0)
+HOT_LN_WIDTH = 0.6
+MIN_LN_WIDTH = 0.15
+DEFAULT_VSINI_ERROR_KMS = 1.0                  # when the catalog gives none (common practice)
+RADIUS_REL_ERROR = 0.10
+SPIN_VISIBLE_MAX = 0.5     # about half of engulfments leave no lasting spin-up (planning value)
+# The engulfed planet's mass is not known: the spin-up is a mixture over multiples of the
+# configured planet weighted like giant planets' mass function (dN/dlnM ∝ M^-0.31, Cumming
+# et al. 2008; the weights are a planning choice).
+SPIN_UP_MULTIPLES = (1.0, 3.0, 10.0)
+SPIN_UP_WEIGHTS = (0.5, 0.3, 0.2)
+DWARF_K2 = 0.08            # whole-star k^2 of a dwarf coupled by magnetic braking (Sun 0.070)
+ENVELOPE_K2 = 0.2          # deep convective envelope ~ n = 1.5 polytrope (0.205)
+ANOMALY_CLIP_SIGMA = 8.0
+
+
+class RotationEvidence(NamedTuple):
+    """Per-row rotation evidence (column names of the ranked table)."""
+
+    veq_expected_kms: np.ndarray
+    veq_expected_spread_kms: np.ndarray
+    rot_expect_source: np.ndarray
+    rot_anomaly_sigma: np.ndarray
+    rotation_likelihood_ratio: np.ndarray
+    spin_visible_fraction: np.ndarray
+
+
+def engulfment_spin_up_kms(planet_mjup, mass_msun, radius_rsun, m_cz_msun, stage):
+    """Equatorial velocity an engulfed planet's orbital angular momentum adds (km/s).
+
+    :func:`spin_up_velocity_kms` with the region that is spun up: the whole star
+    (k^2 = 0.08) for main-sequence and turnoff dwarfs, whose core and envelope are
+    coupled on the braking timescale; the convective envelope (k^2 = 0.2, an n = 1.5
+    polytrope) for subgiants and giants, whose envelope holds most of the moment of
+    inertia.  ~1-2 km/s per Jupiter mass for a 1 M_sun, 4 R_sun giant (SCIENCE check
+    rows of Carlberg, Majewski & Arras 2009; Lau et al. 2025)."""
+    stage = np.asarray(stage, dtype=object)
+    mass = np.asarray(mass_msun, dtype=float)
+    dwarf = np.isin(stage, GYRO_STAGES)
+    spun = np.where(dwarf, mass, np.clip(np.asarray(m_cz_msun, dtype=float), 1e-6, None))
+    spun = np.minimum(spun, mass)
+    k2 = np.where(dwarf, DWARF_K2, ENVELOPE_K2)
+    return spin_up_velocity_kms(np.full(mass.shape, float(planet_mjup)), mass, radius_rsun, spun, k2)
+
+
+def _lognormal_density(u, mu, s):
+    return np.exp(-0.5 * ((np.log(u) - mu) / s) ** 2) / (u * s * np.sqrt(2 * np.pi))
+
+
+def _population(stage, teff, mass, radius, b_v0, age_samples, cluster_period, cluster_ln, gyro):
+    """Normal-population mixture of lognormals in v_eq: (mu, s, w) of shape (n, K) and the source."""
+    n = stage.size
+    k = AGE_NODES
+    mu = np.full((n, k), np.nan)
+    s = np.full((n, k), np.nan)
+    w = np.zeros((n, k))
+    source = np.full(n, "unavailable", dtype=object)
+    dwarf = np.isin(stage, GYRO_STAGES)
+    evolved = np.isin(stage, ("subgiant",) + GIANT_STAGES)
+    two_pi_r = 2 * np.pi * radius * R_SUN_KM / SECONDS_PER_DAY
+    # hot dwarfs: the main-sequence velocity of the mass
+    v_ms, v_ms_spread = ms_rotation_velocity_kms(np.where(np.isfinite(mass), mass, np.nan))
+    hot = dwarf & np.isfinite(v_ms)
+    mu[hot, 0] = np.log(v_ms[hot])
+    s[hot, 0] = np.maximum(np.log1p(v_ms_spread[hot] / v_ms[hot]), HOT_LN_WIDTH)
+    w[hot, 0] = 1.0
+    source[hot] = "hot_dwarf_empirical"
+    # gyrochronology, marginalised over the age posterior
+    gyro_ok = dwarf & (b_v0 >= GYRO_COLOR_RANGE[0]) & (b_v0 <= GYRO_COLOR_RANGE[1]) \
+        & (teff <= KRAFT_BREAK_TEFF_K) & np.isfinite(radius)
+    ages = np.clip(np.asarray(age_samples, dtype=float), *AGE_CLIP_MYR)
+    has_age = np.isfinite(ages).any(axis=1)
+    gyro_ok &= has_age
+    if gyro_ok.any():
+        nodes = np.nanquantile(ages[gyro_ok], AGE_QUANTILES, axis=1).T
+        period, spread = GYRO_RELATIONS[gyro](np.repeat(b_v0[gyro_ok, None], k, axis=1), nodes)
+        mu[gyro_ok] = np.log(two_pi_r[gyro_ok, None] / period)
+        s[gyro_ok] = np.maximum(spread / period, MIN_LN_WIDTH)
+        w[gyro_ok] = AGE_WEIGHTS[None, :]
+        source[gyro_ok] = f"gyro_{gyro} (age-marginalised)"
+    # the cluster's own sequence
+    clus = dwarf & np.isfinite(cluster_period) & np.isfinite(radius)
+    if clus.any():
+        mu[clus] = np.nan
+        w[clus] = 0.0
+        mu[clus, 0] = np.log(two_pi_r[clus] / cluster_period[clus])
+        s[clus, 0] = np.maximum(cluster_ln[clus], MIN_LN_WIDTH)
+        w[clus, 0] = 1.0
+        source[clus] = "cluster_sequence"
+    # evolved stars: braked population by Teff
+    ev = evolved & np.isfinite(teff)
+    if ev.any():
+        t0, t1 = EVOLVED_DIVIDE_TEFF_K
+        hot_v = np.where(np.isfinite(v_ms), v_ms * np.clip(1.5 / np.where(radius > 0, radius, 1.5), 0.05, 1.0),
+                         EVOLVED_COOL_VEQ_KMS)
+        hot_v = np.maximum(hot_v, EVOLVED_COOL_VEQ_KMS)
+        frac = np.clip((teff - t0) / (t1 - t0), 0.0, 1.0)
+        median = np.exp(np.log(EVOLVED_COOL_VEQ_KMS) + frac * (np.log(hot_v) - np.log(EVOLVED_COOL_VEQ_KMS)))
+        mu[ev, 0] = np.log(median[ev])
+        s[ev, 0] = EVOLVED_COOL_LN_WIDTH + frac[ev] * (HOT_LN_WIDTH - EVOLVED_COOL_LN_WIDTH)
+        w[ev, 0] = 1.0
+        source[ev] = "evolved_empirical"
+    return mu, s, w, source
+
+
+def _observed_density(mu, s, w, is_vsini):
+    """Density of the observed quantity on GRID_VELOCITY_KMS: (n, G)."""
+    u = GRID_VELOCITY_KMS
+    mu = np.where(w > 0, mu, 0.0)
+    s = np.where(w > 0, s, 1.0)
+    veq = np.einsum("nk,nkg->ng", w, _lognormal_density(u[None, None, :], mu[..., None], s[..., None]))
+    if not is_vsini.any():
+        return veq
+    shifted = np.log(_SIN_I)[None, None, :, None]
+    dens = _lognormal_density(u[None, None, None, :], mu[..., None, None] + shifted, s[..., None, None])
+    vsini = np.einsum("nk,nkjg->ng", w, dens) / _SIN_I.size
+    return np.where(is_vsini[:, None], vsini, veq)
+
+
+def _likelihood_and_cdf(density, obs, err):
+    u = GRID_VELOCITY_KMS
+    du = u * _LN_STEP
+    mass = density * du[None, :]
+    z = (obs[:, None] - u[None, :]) / err[:, None]
+    like = (mass * np.exp(-0.5 * z ** 2) / (err[:, None] * np.sqrt(2 * np.pi))).sum(axis=1)
+    cdf = (mass * norm.cdf(z)).sum(axis=1) / np.maximum(mass.sum(axis=1), 1e-300)
+    return like, cdf
+
+
+def _quantiles_veq(mu, s, w, q):
+    u = GRID_VELOCITY_KMS
+    dens = _observed_density(mu, s, w, np.zeros(mu.shape[0], bool)) * (u * _LN_STEP)[None, :]
+    cdf = np.cumsum(dens, axis=1)
+    cdf = cdf / np.maximum(cdf[:, -1:], 1e-300)
+    return np.stack([u[np.minimum((cdf < qq).sum(axis=1), u.size - 1)] for qq in q])
+
+
+def rotation_evidence(stage, teff_k, mass_msun, radius_rsun, b_v0, age_samples_myr, veq_obs_kms,
+                      veq_err_kms, vsini_kms, vsini_err_kms, spin_up_kms, lifetime_myr,
+                      cluster_period_d=None, cluster_ln_scatter=None, gyro_relation="barnes2007",
+                      other_cause_fraction=0.05, chunk=1000) -> RotationEvidence:
+    """Rotation as evidence for a recent engulfment: a bounded likelihood ratio.
+
+    1. Normal population of v_eq by stage (a mixture of lognormals): main-sequence and
+       turnoff dwarfs below the Kraft break and inside 0.5 <= (B-V)_0 <= 1.6 from
+       gyrochronology (Barnes 2007 or Mamajek & Hillenbrand 2008) at 8 quantiles of the
+       star's age posterior — the placement's prior is constant star formation, so a
+       fast dwarf is first explained by the young tail of its ages and is anomalous
+       only if it is fast for every plausible age; cluster members from their cluster's
+       own sequence; hot dwarfs (above the break, in the Li dip) from the main-sequence
+       velocity of their mass (:func:`ms_rotation_velocity_kms`); subgiants, giants and
+       clump stars from the braked population of evolved stars (module constants).
+    2. The observed quantity: v_eq = 2 pi R / P (Gaussian error: period and 10% radius)
+       or, without a period, v sin i with sin i for random orientations and a Gaussian
+       error (1 km/s when none is given), integrated on a fixed velocity grid.
+    3. Anomaly = Phi^-1(CDF of the observation under the normal population), clipped at
+       +-8 sigma; ``rapid_rotator`` is anomaly >= threshold, so the two cannot disagree.
+    4. Engulfment: every component's median shifted by the spin-up (m -> m + c dv, with
+       c = 1, 3, 10 weighted 0.5/0.3/0.2 since the planet's mass is not known), seen for a
+       fraction w of the signature's lifetime (dwarfs: w = t_brake / lifetime with
+       t_brake the Barnes age of the spun-up period; evolved stars: w = 1; w <= 0.5):
+       p(v | engulfed) = w p_shifted + (1 - w) p_normal,  g = p(v | engulfed) / p(v | normal),
+       LR = g / ((1 - f) + f g), f = share of normal stars spun up by other causes.
+       So LR >~ 1 - w_max = 0.5 and LR <= 1/f: a slow star is weak evidence against, a fast one
+       gains at most 1/f (20 for f = 0.05).  No rotation data: LR = 1, anomaly NaN.
+
+    Parameters
+    ----------
+    stage : array_like of str
+        Canonical stage names ('' unknown).
+    teff_k, mass_msun, radius_rsun, b_v0 : array_like
+        Teff (K), mass (M_sun), radius (R_sun), dereddened B-V (mag).
+    age_samples_myr : ndarray, shape (n, S)
+        Age samples of the placement posterior (Myr).
+    veq_obs_kms, veq_err_kms, vsini_kms, vsini_err_kms : array_like
+        Observed v_eq from a period (and error), v sin i (and error), km/s; NaN unknown.
+    spin_up_kms : array_like
+        Spin-up by the configured planet (:func:`engulfment_spin_up_kms`).
+    lifetime_myr : array_like
+        The signature's lifetime (Myr).
+    cluster_period_d, cluster_ln_scatter : array_like, optional
+        The member's cluster-sequence period and its ln scatter (NaN: none).
+    gyro_relation : {"barnes2007", "mh08"}
+    other_cause_fraction : float
+        f in (0, 1).
+
+    Returns
+    -------
+    RotationEvidence
+        Planning estimates.
+
+    References
+    ----------
+    Barnes 2007, ApJ 669, 1167; Mamajek & Hillenbrand 2008, ApJ 687, 1264; de Medeiros &
+    Mayor 1999, A&AS 139, 433; Carlberg et al. 2011, ApJ 732, 39; Gray 1989, ApJ 347, 1021;
+    Sussholz, Mazeh & Faigler 2026, arXiv:2601.20008.
+    """
+    func = "rotation_evidence"
+    if gyro_relation not in GYRO_RELATIONS:
+        raise PrioritizeError(f"{func}: gyro_relation must be one of {', '.join(GYRO_RELATIONS)}")
+    if not 0.0 < other_cause_fraction < 1.0:
+        raise PrioritizeError(f"{func}: other_cause_fraction must be in (0, 1)")
+    stage = _canonical_stage(np.atleast_1d(np.asarray(stage, dtype=object)), func)
+    n = stage.size
+    arr = [np.broadcast_to(_array(name, func, v), (n,)).astype(float) for name, v in (
+        ("teff_k", teff_k), ("mass_msun", mass_msun), ("radius_rsun", radius_rsun), ("b_v0", b_v0),
+        ("veq_obs_kms", veq_obs_kms), ("veq_err_kms", veq_err_kms), ("vsini_kms", vsini_kms),
+        ("vsini_err_kms", vsini_err_kms), ("spin_up_kms", spin_up_kms), ("lifetime_myr", lifetime_myr),
+        ("cluster_period_d", np.nan if cluster_period_d is None else cluster_period_d),
+        ("cluster_ln_scatter", np.nan if cluster_ln_scatter is None else cluster_ln_scatter))]
+    teff, mass, radius, bv, veq, veq_err, vsini, vsini_err, dv, life, cper, cln = arr
+    ages = np.broadcast_to(np.asarray(age_samples_myr, dtype=float).reshape(n, -1), (n, np.size(age_samples_myr) // max(n, 1) or 1))
+    out = {k: np.full(n, np.nan) for k in ("exp", "spread", "anom", "lr", "wvis")}
+    source = np.full(n, "unavailable", dtype=object)
+    for a in range(0, n, chunk):
+        sl = slice(a, a + chunk)
+        mu, s, w, src = _population(stage[sl], teff[sl], mass[sl], radius[sl], bv[sl], ages[sl],
+                                    cper[sl], cln[sl], gyro_relation)
+        source[sl] = src
+        have = w.sum(axis=1) > 0
+        q16, q50, q84 = _quantiles_veq(mu, s, w, (0.16, 0.5, 0.84))
+        out["exp"][sl] = np.where(have, q50, np.nan)
+        out["spread"][sl] = np.where(have, 0.5 * (q84 - q16), np.nan)
+        use_veq = np.isfinite(veq[sl])
+        obs = np.where(use_veq, veq[sl], vsini[sl])
+        err = np.where(use_veq, np.hypot(np.nan_to_num(veq_err[sl]), 0.0),
+                       np.where(np.isfinite(vsini_err[sl]) & (vsini_err[sl] > 0), vsini_err[sl],
+                                DEFAULT_VSINI_ERROR_KMS))
+        err = np.maximum(err, 0.05)
+        known = have & np.isfinite(obs)
+        is_vsini = ~use_veq
+        dens_n = _observed_density(mu, s, w, is_vsini)
+        like_n, cdf = _likelihood_and_cdf(dens_n, np.nan_to_num(obs), err)
+        m = np.exp(mu)
+        like_e = np.zeros(like_n.shape)
+        for multiple, weight in zip(SPIN_UP_MULTIPLES, SPIN_UP_WEIGHTS):
+            mu_e = np.log(m + multiple * np.nan_to_num(dv[sl])[:, None])
+            like_e += weight * _likelihood_and_cdf(_observed_density(mu_e, s, w, is_vsini),
+                                                   np.nan_to_num(obs), err)[0]
+        wvis = _spin_visible(stage[sl], bv[sl], teff[sl], radius[sl], q50, np.nan_to_num(dv[sl]), life[sl])
+        g = (wvis * like_e + (1 - wvis) * like_n) / np.maximum(like_n, 1e-300)
+        f = other_cause_fraction
+        lr = g / ((1 - f) + f * g)
+        anom = np.clip(norm.ppf(np.clip(cdf, 1e-300, 1 - 1e-16)), -ANOMALY_CLIP_SIGMA, ANOMALY_CLIP_SIGMA)
+        out["anom"][sl] = np.where(known, anom, np.nan)
+        out["lr"][sl] = np.where(known & np.isfinite(lr), lr, 1.0)
+        out["wvis"][sl] = np.where(have, wvis, np.nan)
+    return RotationEvidence(out["exp"], out["spread"], source, out["anom"], out["lr"], out["wvis"])
+
+
+def _spin_visible(stage, b_v0, teff, radius, v_normal, dv, lifetime):
+    """Share of the signature's lifetime with the spin-up still seen (<= SPIN_VISIBLE_MAX)."""
+    dwarf = np.isin(stage, GYRO_STAGES) & (teff <= KRAFT_BREAK_TEFF_K) & (b_v0 > BARNES2007["c"][0])
+    a, b, n = BARNES2007["a"][0], BARNES2007["b"][0], BARNES2007["n"][0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p_new = 2 * np.pi * radius * R_SUN_KM / SECONDS_PER_DAY / (v_normal + dv)
+        t_brake = (p_new / (a * (b_v0 - 0.4) ** b)) ** (1.0 / n)
+        frac = np.where(lifetime > 0, t_brake / lifetime, 1.0)
+    frac = np.where(dwarf & np.isfinite(frac), frac, 1.0)
+    return np.clip(frac, 0.0, SPIN_VISIBLE_MAX)
