@@ -34,7 +34,12 @@ class PlanetConfig:
                                      doc="further planet masses reported as extra columns")
     hydrogen_fraction: float = _spec(0.70, lo=0.0, hi=1.0,
                                      doc="hydrogen mass fraction X_p (Jupiter ~0.70)")
-    a_li: float = _spec(3.26, lo=-2.0, hi=4.5, doc="A(Li) of the planet; meteoritic 3.26")
+    a_li: float = _spec(3.26, lo=-2.0, hi=4.5,
+                        doc="A(Li) of planet material of protosolar metallicity; meteoritic 3.26")
+    bulk_metallicity: float = _spec(0.06, lo=1e-4, hi=1.0,
+                                    doc="bulk metal mass fraction Z_p of the planet (Jupiter ~0.03-0.13)")
+    li_follows_metals: bool = _spec(True, doc="planet A(Li) = a_li + log10(Z_p / 0.0142): lithium "
+                                              "arrives with the solids that enriched the planet")
     li_mass_fraction: float = _spec(1.5e-6, lo=0.0, hi=1e-3,
                                     doc="Li mass fraction for rocky bodies (CI chondrite ~1.5e-6)")
     deposition: str = _spec("full", choices=("full", "ram-pressure", "virial"),
@@ -60,18 +65,16 @@ class BaselineConfig:
     logg_step: float = _spec(0.25, lo=0.05, hi=2.0, doc="reference bin width in logg (dex)")
     feh_step: float = _spec(0.0, lo=0.0, hi=2.0, doc="reference bin width in [Fe/H] (0: not binned)")
     min_count: int = _spec(20, lo=1, hi=100000, doc="fewest reference stars per bin before merging")
-    prior_scatter_dex: float = _spec(0.4, lo=0.05, hi=2.0,
-                                     doc="intrinsic scatter of the built-in prior (dex)")
+    prior_scatter_dex: float = _spec(0.0, lo=0.0, hi=2.0,
+                                     doc="scatter of the built-in prior (dex); 0 = by stage")
     measurement_error_dex: float = _spec(0.0, lo=0.0, hi=2.0,
                                          doc="expected A(Li) measurement error, added in quadrature")
 
 
 @dataclass(frozen=True)
 class ScoringConfig:
-    """How the interim priority is formed."""
+    """Sampling and reproducibility."""
 
-    lifetime_scale_myr: float = _spec(10.0, lo=1e-3, hi=1e5,
-                                      doc="lifetime at which the lifetime weight reaches 1/2")
     samples_per_star: int = _spec(64, lo=4, hi=4096,
                                   doc="posterior samples carried through the chain per star")
     seed: int = _spec(20261201, lo=0, hi=2**32 - 1, doc="random seed (results are deterministic)")
@@ -93,8 +96,9 @@ class RotationConfig:
 
     gyro_relation: str = _spec("barnes2007", choices=("barnes2007", "mh08"),
                                doc="gyrochronology relation for main-sequence dwarfs")
-    base_odds: float = _spec(0.02, lo=1e-6, hi=1.0,
-                             doc="prior odds of a recent engulfment before the rotation evidence")
+    other_cause_fraction: float = _spec(0.05, lo=1e-3, hi=0.9,
+                                        doc="share of normal stars spun up by other causes "
+                                            "(binaries, mergers); bounds the rotation evidence")
     rapid_anomaly_sigma: float = _spec(3.0, lo=0.5, hi=50.0,
                                        doc="rotation anomaly (sigma) that counts as anomalous")
     rapid_only: bool = _spec(False, doc="keep only rapid or anomalous rotators in the ranking")
@@ -110,6 +114,11 @@ class ObservingConfig:
                                     doc="atmospheric extinction near 6708 A (mag per airmass)")
     k_sigma: float = _spec(3.0, lo=1.0, hi=20.0,
                            doc="the enrichment's equivalent-width rise must be seen at this many sigma")
+    min_snr_per_pixel: float = _spec(50.0, lo=1.0, hi=2000.0,
+                                     doc="lowest S/N per pixel at 6708 A for a usable A(Li)")
+    ew_floor_mA: float = _spec(5.0, lo=0.0, hi=200.0,
+                               doc="systematic EW floor (continuum placement, Fe I 6707.4 blend): "
+                                   "smaller rises are not measurable, and A(Li) below it is a limit")
 
 
 @dataclass(frozen=True)

@@ -31,6 +31,7 @@ AMU_LI = 6.94                                # atomic mass of Li (u), IUPAC stan
 A_LI_METEORITIC = 3.26                       # CI chondrites, Asplund et al. 2009, ARA&A 47, 481
 A_LI_SUN = 1.05                              # solar photosphere, Asplund et al. 2009
 X_SUN_PRESENT = 0.7381                       # Asplund et al. 2009, Table 4
+Z_PROTOSOLAR = 0.0142                        # protosolar metal mass fraction, Asplund et al. 2009
 Z_SUN_TRACKS = 0.02                          # metallicity scale of the Hurley, Pols & Tout (2000) fits
 SECONDS_PER_YEAR = 3.15576e7                 # Julian year
 C_LIGHT_CGS = _c.c.cgs.value                 # exact (SI definition) via astropy

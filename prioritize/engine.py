@@ -19,13 +19,13 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from . import exposure, rotation, score, spectra
+from . import engulfment, exposure, rotation, score, spectra
 from .catalog import status as st
 from .config import Config, with_overrides
 from .errors import PrioritizeError, PrioritizeWarning
 from .lithium import baseline, lifetime
-from .constants import M_JUP_MSUN, M_SUN_G, R_SUN_CM
-from .lithium.enrichment import (PlanetComposition, enriched_abundance, mjup_to_msun,
+from .constants import M_JUP_MSUN, M_SUN_G, R_SUN_CM, Z_PROTOSOLAR
+from .lithium.enrichment import (GAS_KINDS, PlanetComposition, enriched_abundance, mjup_to_msun,
                                  planet_mass_for_abundance)
 from .stars import evolution, placement
 from .instruments import load_instrument
@@ -34,10 +34,11 @@ from .lithium import burning, deposition
 from .stars.tracks import (PHASE_EEPS, TrackGrid, convective_envelope, envelope_profile, load_grid,
                            z_to_feh)
 
-MID_MS_EEP = 100.0           # main-sequence radius for angular-momentum conservation is taken here
 PRIOR_SOURCE = "prior (model, not measured)"
 ENVELOPE_OUTPUT_COLUMNS = ("t_bcz_k", "rho_bcz_gcc", "r_bcz_rsun", "m_li_preserved_msun",
                            "envelope_quality")
+ODDS_COLUMNS = ("p_engulfed_history", "planets_swept", "capture_radius_now_rsun",
+                "capture_radius_then_rsun", "p_background")
 DEPOSITION_COLUMNS = ("deposited_fraction_full", "deposited_fraction_ram_pressure",
                       "deposited_fraction_virial", "disruption_radius_ram_rsun",
                       "disruption_radius_virial_rsun")
@@ -45,9 +46,11 @@ MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement 
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
-VSINI_DEFAULT_ERROR_KMS = 1.0    # assumed v sin i error when the catalog gives none (common practice)
-THIN_SHELL_K2 = 2.0 / 3.0        # k^2 of a thin shell; deep convective envelopes approach n=1.5 (0.205)
 LIFETIME_CHUNK = 2000        # stars per chunk when following tracks into the future
+EARLY_EEP_STEPS = (0.001, 0.003, 0.01, 0.03, 0.1, 0.3)  # sub-steps after the present point
+PRESERVED_MASS_EEPS = (0.0, 50.0, 100.0, 150.0)  # main-sequence points searched for the Li-preserving layer
+TURNOFF_EEP = PHASE_EEPS["main_sequence"][0] + evolution.TURNOFF_FRACTION * (
+    PHASE_EEPS["main_sequence"][1] - PHASE_EEPS["main_sequence"][0])
 
 OUTPUT_COLUMNS = [
     "star_id", "rank", "priority", "status", "note",
@@ -59,14 +62,16 @@ OUTPUT_COLUMNS = [
     "disruption_radius_virial_rsun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
     "p_detect", "lifetime_myr", "lifetime_p16_myr", "lifetime_p84_myr", "lifetime_end",
-    "lifetime_weight", "m_planet_min_mjup",
+    "m_planet_min_mjup", "a_li_detection_limit",
     "z_observed", "z_observed_is_limit", "m_planet_needed_mjup",
     "veq_kms", "veq_expected_kms", "veq_expected_spread_kms", "rot_expect_source",
     "rot_anomaly_sigma", "rapid_rotator", "m_planet_spin_mjup", "spin_li_consistency",
-    "p_engulfed_rotation", "p_engulfed",
+    "spin_up_kms", "spin_visible_fraction", "rotation_likelihood_ratio",
+    "p_engulfed_history", "planets_swept", "capture_radius_now_rsun", "capture_radius_then_rsun",
+    "p_background", "p_engulfed",
     "ew_base_mA", "ew_enriched_mA", "delta_ew_mA", "line_fwhm_A", "snr_needed", "r_c_mag",
     "exposure_s", "exposure_flag", "snr_at_exposure", "overhead_s", "time_on_target_s",
-    "p_measured", "instrument", "lines_to_measure", "coverage_missing",
+    "delta_ew_measurable", "p_measured", "instrument", "lines_to_measure", "coverage_missing",
     "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source", "baseline_n",
     "teff_zams_k", "a_li_main_sequence", "dilution_dex", "m_planet_msun", "chi2_best",
 ]
@@ -76,9 +81,18 @@ _CLUSTER_KEYS = {"cluster_age_gyr": "age_gyr", "cluster_feh": "feh",
 
 
 def planet_composition(cfg: Config) -> PlanetComposition:
-    """The configured planet's composition."""
+    """The configured planet's composition.
+
+    For gas giants and brown dwarfs with ``li_follows_metals``, lithium arrives with the
+    solids that enriched the planet in metals: A(Li)_p = a_li + log10(Z_p / Z_protosolar)
+    (Z_protosolar = 0.0142, Asplund et al. 2009; Jupiter's bulk Z ~0.03-0.13 from
+    interior models fitted to Juno gravity data, e.g. Wahl et al. 2017, GRL 44, 4649 —
+    range from memory)."""
     p = cfg.planet
-    return PlanetComposition(p.kind, p.hydrogen_fraction, p.a_li, p.li_mass_fraction)
+    a_li = p.a_li
+    if p.li_follows_metals and p.kind in GAS_KINDS:
+        a_li = p.a_li + float(np.log10(p.bulk_metallicity / Z_PROTOSOLAR))
+    return PlanetComposition(p.kind, p.hydrogen_fraction, a_li, p.li_mass_fraction)
 
 
 def _column(df: pd.DataFrame, name: str, dtype=float) -> np.ndarray:
@@ -150,8 +164,8 @@ def _place(df, params, route, grid, cfg, rng):
             p = placement.place_by_mass_stage(
                 grid, _column(df, "mass_msun")[rows], _column(df, "mass_msun_err")[rows],
                 _column(df, "stage", object)[rows], feh[rows], rng, s,
-                teff=_column(df, "teff_k")[rows], teff_err=_column(df, "teff_k_err")[rows],
-                logg=logg[rows], logg_err=logg_err[rows])
+                teff=teff[rows], teff_err=teff_err[rows], logg=logg[rows], logg_err=logg_err[rows],
+                logl=logl[rows], logl_err=logl_err[rows])
         elif name == "cluster isochrone":
             p = placement.place_on_isochrone(grid, teff[rows], teff_err[rows], logl[rows],
                                              logl_err[rows], _column(df, "cluster_age_gyr")[rows],
@@ -182,18 +196,41 @@ def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
 
 
 def _li_preserving_mass(grid, mass, z):
-    """Mass above the 2.5 MK isotherm at the end of the main sequence (the layer whose
-    lithium survives to first dredge-up), from the grid's envelope integration; the
-    interim 2% of the mass where the grid has none."""
-    tams = np.zeros(np.shape(mass)) + PHASE_EEPS["main_sequence"][1] - 1
-    from_grid = convective_envelope(grid, mass, z, tams)["m_li_preserved_msun"]
-    return np.where(np.isfinite(from_grid) & (from_grid > 0), from_grid,
-                    baseline.li_preserving_mass_interim(mass))
+    """Mass above the 2.5 MK isotherm at its shallowest on the main sequence: the layer
+    that never burnt its lithium, which first dredge-up dilutes (grid envelope
+    integration); the interim 2% of the mass where the grid has none."""
+    nodes = np.array(PRESERVED_MASS_EEPS)
+    got = convective_envelope(grid, np.asarray(mass)[..., None], np.asarray(z)[..., None],
+                              nodes)["m_li_preserved_msun"]
+    got = np.where(np.isfinite(got) & (got > 0), got, np.inf).min(axis=-1)
+    return np.where(np.isfinite(got), got, baseline.li_preserving_mass_interim(mass))
+
+
+def _preserved_reservoir(grid, mass, z, eep):
+    """Mass holding the main-sequence lithium: the Li-preserving layer, or the convective
+    envelope before the turnoff where that was deeper (M_sun)."""
+    turnoff = np.minimum(eep, TURNOFF_EEP)
+    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, turnoff,
+                                       convective_envelope(grid, mass, z, turnoff)["m_cz_msun"])
+    return np.fmax(_li_preserving_mass(grid, mass, z), m_cz_ms)
+
+
+def _giant_branch(grid, mass, z):
+    """RGB bump (fractional EEP, log L, age) and the age at the RGB tip per track;
+    NaN bump values where the track has no bump."""
+    bump_eep, bump_logl = evolution.rgb_bump(grid, mass, z)
+    has = np.isfinite(bump_eep)
+    ages = grid.interpolate(mass, z, np.where(has, bump_eep, 0.0), columns=["age_myr"])["age_myr"]
+    tip = grid.interpolate(mass, z, np.zeros(np.shape(mass)) + PHASE_EEPS["giant_branch"][1] - 1,
+                           columns=["age_myr"])["age_myr"]
+    return {"bump_eep": bump_eep, "bump_logl": bump_logl,
+            "bump_age": np.where(has, ages, np.nan), "tip_age": tip}
 
 
 def _surface_burning_time_yr(grid, mass, z, eep, m_cz):
-    """e-folding time of surface lithium (SCIENCE.md §19) at track points; inf where the
-    grid has no convective base or the base is too cool to burn."""
+    """e-folding time of surface lithium by 7Li(p, alpha) at the base of the envelope
+    (``burning.surface_li_timescale_yr``) at track points; inf where the grid has no
+    convective base or the base is too cool to burn."""
     env = convective_envelope(grid, mass, z, eep)
     current = grid.interpolate(mass, z, eep, columns=["mass_msun"])["mass_msun"]
     ok = (np.isfinite(env["t_bcz_k"]) & (env["t_bcz_k"] > 0) & np.isfinite(env["rho_bcz_gcc"])
@@ -238,112 +275,144 @@ def _deposition(grid, mass, z, eep, cfg):
     return cols, used
 
 
-def _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition, reference, deposit=1.0):
-    """Envelope now, deepest so far and on the main sequence, and the lithium at points."""
+def _envelope_and_lithium(grid, mass, z, eep, model, gb, cfg, composition, reference, deposit=1.0,
+                          lookup=None):
+    """Envelope now and deepest so far, the lithium reservoir, and the lithium at points."""
     m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
     m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
-    ms_eep = np.minimum(eep, PHASE_EEPS["main_sequence"][1])
-    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, ms_eep,
-                                       convective_envelope(grid, mass, z, ms_eep)["m_cz_msun"])
-    li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg, composition,
-                     where=model, reference=reference, deposit=deposit)
-    return m_cz, m_cz_max, m_cz_ms, li
+    m_pres = _preserved_reservoir(grid, mass, z, eep)
+    li = _lithium_at(grid, mass, z, eep, model, m_cz, m_cz_max, m_pres, gb, cfg, composition,
+                     reference=reference, deposit=deposit, lookup=lookup)
+    return m_cz, m_cz_max, m_pres, li
 
 
-def _lithium_at(grid, mass, z, age_myr, m_mix, m_cz_max, m_cz_ms, cfg, composition, where=None,
-                reference=None, deposit=1.0, li_survival=1.0):
+def _lithium_at(grid, mass, z, eep, model, m_mix, m_cz_max, m_pres, gb, cfg, composition,
+                reference=None, deposit=1.0, li_survival=1.0, lookup=None):
     """Baseline, enrichment and significance at track points (any shape).
 
-    ``m_mix`` is the envelope mass the planet is mixed into, ``m_cz_max`` the deepest
-    envelope so far, ``m_cz_ms`` the deepest on the main sequence.  The main-sequence
-    prior already holds the lithium the star kept there, so dilution starts only when
-    the envelope reaches below both the lithium-preserving layer and its own
-    main-sequence depth.  With a reference population, the baseline is looked up at the
-    points' model Teff and logg (``where``); points it does not cover keep the prior."""
+    ``model`` holds the points' ``age_myr``, ``logteff``, ``logl`` and ``logg``; ``gb``
+    the tracks' giant-branch ages (:func:`_giant_branch`, broadcastable).  ``m_mix`` is
+    the envelope mass the planet is mixed into, ``m_cz_max`` the deepest envelope so
+    far, ``m_pres`` the reservoir of main-sequence lithium (dilution starts when the
+    envelope reaches below it).  The baseline is the built-in prior by stage, or the
+    reference population looked up at ``lookup`` (``teff_k``, ``logg``: the star's own
+    spectroscopic values where given, else the model's).  The significance compares the
+    enriched abundance with the baseline or, where that is below the detection limit
+    (the EW floor), with the limit: a censored comparison."""
+    age_myr = model["age_myr"]
     zeros = np.zeros_like(age_myr)
     zams = grid.interpolate(mass, z, zeros, columns=["logteff"])
     tams = grid.interpolate(mass, z, zeros + PHASE_EEPS["main_sequence"][1], columns=["age_myr"])
     teff_zams = 10 ** zams["logteff"]
-    m_pres = np.fmax(_li_preserving_mass(grid, mass, z), m_cz_ms)
-    a_ms = baseline.main_sequence_lithium(teff_zams, np.minimum(age_myr, tams["age_myr"]) / 1e3)
-    dilution = baseline.dredge_up_dilution(m_cz_max, m_pres)
-    a_base = np.maximum(a_ms + dilution, baseline.A_LI_FLOOR)
-    sigma = np.full_like(a_base, cfg.baseline.prior_scatter_dex)
+    feh = z_to_feh(z) + zeros
+    stage_i = evolution.stage_index(eep, model["logl"], gb["bump_logl"], PHASE_EEPS)
+    thermohaline = baseline.thermohaline_depletion(age_myr, gb["bump_age"], gb["tip_age"],
+                                                   eep >= PHASE_EEPS["core_he_burning"][0])
+    a_base, a_ms, dilution = baseline.prior_baseline(teff_zams, feh, age_myr / 1e3,
+                                                     tams["age_myr"] / 1e3, m_cz_max, m_pres,
+                                                     thermohaline)
+    sigma = (np.full_like(a_base, cfg.baseline.prior_scatter_dex) if cfg.baseline.prior_scatter_dex > 0
+             else baseline.prior_scatter(stage_i, teff_zams, feh))
     source = np.full(a_base.shape, PRIOR_SOURCE, dtype=object)
     count = np.zeros(a_base.shape)
+    lookup = lookup or {}
+    teff_at = np.broadcast_to(lookup.get("teff_k", 10 ** model["logteff"]), a_base.shape)
+    logg_at = np.broadcast_to(lookup.get("logg", model["logg"]), a_base.shape)
+    teff_at = np.where(np.isfinite(teff_at), teff_at, 10 ** model["logteff"])
+    logg_at = np.where(np.isfinite(logg_at), logg_at, model["logg"])
     if reference is not None:
-        feh = z_to_feh(z) if cfg.baseline.feh_step > 0 else None
-        ref = reference.lookup(10 ** where["logteff"], where["logg"], feh)
+        ref = reference.lookup(teff_at, logg_at, feh if cfg.baseline.feh_step > 0 else None)
         hit = np.isfinite(ref["a_li_base"])
         a_base = np.where(hit, ref["a_li_base"], a_base)
         sigma = np.where(hit, ref["a_li_scatter"], sigma)
         source = np.where(hit, ref["baseline_source"], "prior (" + ref["baseline_source"].astype(object) + ")")
         count = np.where(hit, ref["baseline_n"], 0)
     sigma = np.maximum(np.hypot(sigma, cfg.baseline.measurement_error_dex), MIN_SCATTER_DEX)
+    floor = cfg.observing.ew_floor_mA
+    a_limit = (spectra.a_li_for_weak_ew(teff_at, logg_at, feh, floor) if floor > 0
+               else np.full(a_base.shape, np.nan))
     a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup) * deposit, composition,
                                li_survival=li_survival)
-    return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_base) / sigma,
+    a_compared = baseline.censored_baseline(a_base, a_limit)
+    return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_compared) / sigma,
+            "a_limit": a_limit, "a_compared": a_compared, "stage": stage_i,
             "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution, "source": source,
             "count": count}
 
 
-def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_cz_ms, cfg, composition, reference=None,
+def _cumulative(rate, age):
+    """Trapezoidal integral of ``rate`` (1/Myr) over ``age`` (Myr) along the last axis,
+    starting at 0 (the present point)."""
+    steps = 0.5 * (rate[:, 1:] + rate[:, :-1]) * np.nan_to_num(np.diff(age, axis=1))
+    return np.concatenate([np.zeros((rate.shape[0], 1)), np.cumsum(np.nan_to_num(steps), axis=1)], axis=1)
+
+
+def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, reference=None,
                deposit=1.0):
-    """Lifetime of the signature following each (mass, z) track from ``eep``.
+    """Lifetime of the signature following each (mass, z) track from ``eep``, and the
+    process that ends it (``lithium.lifetime``).
 
     Along the future track the planet's lithium is diluted into the deepest envelope
-    reached since engulfment and burnt at the base of the envelope: the surviving
-    fraction is exp(-∫ dt / τ_surf) (SCIENCE.md §19).  The signature ends by
-    ``burning`` when less than half of the planet's lithium survives at the
-    threshold crossing, else by ``dilution``; or at the RGB bump or the track's end."""
+    reached since engulfment and destroyed or hidden by every process that acts there:
+    burning at the base of the envelope, the main-sequence depletion the prior implies
+    for the same star (the larger of the two counts, since the prior's depletion
+    includes burning), thermohaline mixing above the RGB bump, and fingering mixing
+    after a metal-rich accretion.  The baseline follows the star too (dredge-up,
+    thermohaline depletion, the clump), so z is recomputed at every point."""
     n = mass.size
     life = np.full(n, np.nan)
     end = np.full(n, "", dtype=object)
     nodes = np.asarray(grid.eeps, dtype=float)
     deposit = np.broadcast_to(np.asarray(deposit, dtype=float), (n,))
-    bump_eep, bump_logl = evolution.rgb_bump(grid, mass, z)
+    gb_all = _giant_branch(grid, mass, z)
     gb0, gb1 = PHASE_EEPS["giant_branch"]
-    on_gb = (nodes >= gb0) & (nodes < gb1)
+    ms1 = PHASE_EEPS["main_sequence"][1]
+    planet_z = cfg.planet.bulk_metallicity if composition.kind in GAS_KINDS else 1.0
+    m_planet = mjup_to_msun(cfg.planet.mass_mjup) * deposit
     for start in range(0, n, LIFETIME_CHUNK):
         sl = slice(start, start + LIFETIME_CHUNK)
         m, zz, e = mass[sl, None], z[sl, None], eep[sl, None]
-        future = np.concatenate([e, np.where(nodes[None, :] > e, nodes[None, :], np.nan)], axis=1)
+        # fractions of the next EEP step resolve the first Myr after engulfment (one
+        # main-sequence step is ~50 Myr; fingering mixing acts within a few Myr)
+        soon = np.minimum(e + np.array(EARLY_EEP_STEPS)[None, :], np.floor(e) + 1.0)
+        future = np.concatenate([e, soon, np.where(nodes[None, :] > e, nodes[None, :], np.nan)], axis=1)
+        future = np.where(future <= nodes[-1], future, np.nan)
         future = np.sort(future, axis=1)          # NaN to the end, current point first
         ok = np.isfinite(future)
         mm = np.broadcast_to(m, future.shape)
         zb = np.broadcast_to(zz, future.shape)
         eb = np.where(ok, future, 0.0)
         cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl", "logteff", "logg"])
+        now = grid.interpolate(m[:, 0], zz[:, 0], e[:, 0], columns=["mass_msun", "core_mass_msun"])
         m_cz = np.where(ok, convective_envelope(grid, mm, zb, eb)["m_cz_msun"], np.nan)
         # the planet's lithium stays in the deepest envelope reached since engulfment
         m_mix = np.fmax.accumulate(m_cz, axis=1)
         m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
-        tau_myr = _surface_burning_time_yr(grid, mm, zb, eb, m_mix) / 1e6
         age = np.where(ok, cols["age_myr"], np.nan)
-        rate = np.where(ok, 1.0 / tau_myr, 0.0)
-        burnt = np.concatenate([np.zeros((rate.shape[0], 1)),
-                                np.cumsum(0.5 * (rate[:, 1:] + rate[:, :-1])
-                                          * np.nan_to_num(np.diff(age, axis=1)), axis=1)], axis=1)
-        survival = np.exp(-burnt)
-        li = _lithium_at(grid, mm, zb, cols["age_myr"], m_mix, m_max, m_cz_ms[sl, None], cfg,
-                         composition, where=cols, reference=reference, deposit=deposit[sl, None],
+        gb = {k: v[sl, None] for k, v in gb_all.items()}
+        burn = np.where(ok, 1e6 / _surface_burning_time_yr(grid, mm, zb, eb, m_mix), 0.0)
+        teff_zams = 10 ** grid.interpolate(m[:, 0], zz[:, 0], np.zeros(m.shape[0]),
+                                           columns=["logteff"])["logteff"]
+        prior_rate = np.where(ok & (eb < ms1),
+                              1.0 / baseline.main_sequence_efolding_myr(teff_zams[:, None], age), 0.0)
+        above_bump = ok & (eb >= gb["bump_eep"]) & (eb < gb1)
+        thm = np.where(above_bump, np.nan_to_num(lifetime.thermohaline_rate_per_myr(
+            gb["bump_age"], gb["tip_age"])), 0.0)
+        fingering = lifetime.fingering_survival(
+            age - age[:, :1], m_planet[sl, None], planet_z, zz, m_cz[:, :1],
+            now["mass_msun"][:, None] - now["core_mass_msun"][:, None] - m_cz[:, :1])
+        losses = {lifetime.END_DILUTION: np.log(m_mix / m_mix[:, :1]),
+                  lifetime.END_BURNING: _cumulative(burn, age),
+                  lifetime.END_MS_DEPLETION: _cumulative(np.maximum(prior_rate - burn, 0.0), age),
+                  lifetime.END_THERMOHALINE: _cumulative(thm, age),
+                  lifetime.END_FINGERING: -np.log(fingering)}
+        survival = np.exp(-sum(v for k, v in losses.items() if k != lifetime.END_DILUTION))
+        li = _lithium_at(grid, mm, zb, eb, cols, m_mix, m_max, m_pres[sl, None], gb, cfg,
+                         composition, reference=reference, deposit=deposit[sl, None],
                          li_survival=survival)
         z_along = np.where(ok, li["z"], np.nan)
-        track = grid.interpolate(mm[:, :1] + 0 * nodes, zb[:, :1] + 0 * nodes,
-                                 np.broadcast_to(nodes, (mm.shape[0], nodes.size)),
-                                 columns=["logl", "age_myr"])
-        reached = on_gb[None, :] & (track["logl"] >= bump_logl[sl, None])
-        has = reached.any(axis=1)
-        bump_age = np.where(has, track["age_myr"][np.arange(has.size), reached.argmax(axis=1)],
-                            np.nan)
-        life[sl], end[sl] = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature,
-                                                        bump_age)
-        # which process dominated at the crossing: burning if < half the planet's Li survives
-        below = np.isfinite(z_along) & (z_along < cfg.thresholds.z_signature)
-        below[:, 0] = False
-        j = below.argmax(axis=1)
-        burnt_out = survival[np.arange(j.size), j] < 0.5
-        end[sl] = np.where((end[sl] == lifetime.END_DILUTION) & burnt_out, lifetime.END_BURNING, end[sl])
+        life[sl], crossing, ends = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature)
+        end[sl] = lifetime.ending_process(ends, crossing, losses)
     return life, end
 
 
@@ -363,13 +432,14 @@ def signature_at(grid: TrackGrid, mass, z, eep, cfg: Config, reference=None) -> 
     mass, z, eep = (np.asarray(x, dtype=float).ravel() for x in (mass, z, eep))
     composition = planet_composition(cfg)
     model = grid.interpolate(mass, z, eep, columns=["logteff", "logl", "logg", "age_myr"])
-    m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg, composition,
-                                                        reference)
+    gb = _giant_branch(grid, mass, z)
+    m_cz, m_cz_max, m_pres, li = _envelope_and_lithium(grid, mass, z, eep, model, gb, cfg,
+                                                       composition, reference)
     ok = np.isfinite(li["z"])
     life = np.full(mass.size, np.nan)
     end = np.full(mass.size, "", dtype=object)
     if ok.any():
-        life[ok], end[ok] = _lifetimes(grid, mass[ok], z[ok], eep[ok], m_cz_max[ok], m_cz_ms[ok],
+        life[ok], end[ok] = _lifetimes(grid, mass[ok], z[ok], eep[ok], m_cz_max[ok], m_pres[ok],
                                        cfg, composition, reference)
     return {"m_cz_msun": m_cz, "a_li_base": li["a_base"], "a_li_scatter": li["sigma"],
             "a_li_enriched": li["a_new"], "z_enrich": li["z"], "lifetime_myr": life,
@@ -426,17 +496,20 @@ def _run_batch(df, cfg, grid, rng, reference):
         mid = np.argmin(np.abs(eep - np.median(eep, axis=1, keepdims=True)), axis=1)
         dep_cols, deposit = _deposition(grid, mass[r, mid], z[r, mid], eep[r, mid], cfg)
         deposit = np.repeat(deposit[:, None], s, axis=1)
-        m_cz, m_cz_max, m_cz_ms, li = _envelope_and_lithium(grid, mass, z, eep, model, cfg,
-                                                            composition, reference, deposit)
-        stage_i = evolution.stage_index(eep, model["logl"], evolution.rgb_bump(grid, mass, z)[1],
-                                        PHASE_EEPS)
+        gb = _giant_branch(grid, mass, z)
+        lookup = {"teff_k": params["teff_k"].to_numpy(float)[idx, None],
+                  "logg": _column(df, "logg")[idx, None]}
+        m_cz, m_cz_max, m_pres, li = _envelope_and_lithium(grid, mass, z, eep, model, gb, cfg,
+                                                           composition, reference, deposit, lookup)
+        stage_i = li["stage"]
         zs = li["z"]
         z_med = np.nanmedian(zs, axis=1)
         rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                               m_cz_ms[r, rep], cfg, composition, reference, deposit[r, rep])
-        life_lo, life_hi = _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition,
+                               m_pres[r, rep], cfg, composition, reference, deposit[r, rep])
+        life_lo, life_hi = _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition,
                                             reference, deposit)
+        odds = _engulfment_odds(grid, mass[r, rep], z[r, rep], eep[r, rep], life, cfg)
         env = convective_envelope(grid, mass[r, rep], z[r, rep], eep[r, rep])
         tau = _surface_burning_time_yr(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz[r, rep])
         res = {
@@ -458,14 +531,16 @@ def _run_batch(df, cfg, grid, rng, reference):
             "lifetime_p16_myr": life_lo, "lifetime_p84_myr": life_hi,
             "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
             "dilution_dex": li["dilution"][r, rep],
+            "a_li_detection_limit": li["a_limit"][r, rep],
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
             **{k: env[k] for k in ENVELOPE_OUTPUT_COLUMNS},
             "li_burning_timescale_myr": tau / 1e6,
             **dep_cols,
-            **_other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, mid, cfg, reference),
-            "radius_ms_rsun": 10 ** grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, MID_MS_EEP),
-                                                     columns=["logr"])["logr"],
+            **_other_planets(grid, mass, z, eep, model, gb, m_cz, m_cz_max, m_pres, rep, mid, cfg,
+                             reference, lookup),
+            **odds,
+            "age_samples_myr": model["age_myr"],
         }
     for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
                 "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
@@ -484,20 +559,25 @@ def _run_batch(df, cfg, grid, rng, reference):
     out["baseline_source"] = _scatter(n, idx, res.get("baseline_source"), object)
     out["baseline_n"] = _scatter(n, idx, res.get("baseline_n"), float)
     model_logg = _scatter(n, idx, res.get("model_logg"), float)
+    out["a_li_detection_limit"] = _scatter(n, idx, res.get("a_li_detection_limit"), float)
+    compared = np.fmax(out["a_li_base"].to_numpy(float),
+                       np.nan_to_num(out["a_li_detection_limit"].to_numpy(float), nan=-np.inf))
     out["m_planet_min_mjup"] = planet_mass_for_abundance(
-        out["a_li_base"], out["a_li_base"] + cfg.thresholds.z_signature * out["a_li_scatter"],
+        out["a_li_base"], compared + cfg.thresholds.z_signature * out["a_li_scatter"],
         out["m_cz_msun"], composition) / M_JUP_MSUN
-    for col in (*ENVELOPE_OUTPUT_COLUMNS, "li_burning_timescale_myr", *DEPOSITION_COLUMNS):
+    for col in (*ENVELOPE_OUTPUT_COLUMNS, "li_burning_timescale_myr", *DEPOSITION_COLUMNS,
+                *ODDS_COLUMNS):
         out[col] = _scatter(n, idx, res.get(col), float)
     for col in [k for k in res if _is_other_planet_column(k)]:
         out[col] = _scatter(n, idx, res[col], float)
     _measured_lithium_columns(out, df, composition)
-    _rotation_columns(out, df, params, _scatter(n, idx, res.get("radius_ms_rsun"), float), cfg)
+    ages = np.full((n, s), np.nan)
+    if "age_samples_myr" in res:
+        ages[idx] = res["age_samples_myr"]
+    _rotation_columns(out, df, params, ages, cfg)
     _observing_columns(out, df, model_logg, cfg)
-    weight = score.lifetime_weight(out["lifetime_myr"].to_numpy(), cfg.thresholds.min_lifetime_myr,
-                                   cfg.scoring.lifetime_scale_myr)
-    out["lifetime_weight"] = weight
-    out["p_engulfed"] = out["p_engulfed_rotation"] * weight
+    out["p_engulfed"] = score.engulfed_posterior(out["p_engulfed_history"],
+                                                 out["rotation_likelihood_ratio"])
     out["priority"] = score.detections_per_hour(out["p_engulfed"], out["p_detect"], out["p_measured"],
                                                 out["time_on_target_s"])
     if cfg.rotation.rapid_only:
@@ -517,7 +597,19 @@ def _run_batch(df, cfg, grid, rng, reference):
     return pd.concat([out[OUTPUT_COLUMNS + other], passthrough.reset_index(drop=True)], axis=1)
 
 
-def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition, reference, deposit):
+def _engulfment_odds(grid, mass, z, eep, life, cfg):
+    """Prior probability that the star engulfed the configured planet within the
+    signature's lifetime before now (``engulfment.engulfment_probability``), from its
+    own radius history along the track."""
+    window = np.where(np.isfinite(life), life, 0.0)
+    r_now, r_then = engulfment.radius_history(grid, mass, z, eep, window)
+    current = grid.interpolate(mass, z, eep, columns=["mass_msun"])["mass_msun"]
+    odds = engulfment.engulfment_probability(r_now, r_then, window, current, z_to_feh(z),
+                                             cfg.planet.mass_mjup, cfg.planet.kind)
+    return {k: np.asarray(getattr(odds, k), dtype=float) for k in ODDS_COLUMNS}
+
+
+def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition, reference, deposit):
     """Lifetimes of the samples at the 16th and 84th percentiles of z (the spread the
     placement uncertainty gives); zero where no sample reaches the threshold."""
     n = mass.shape[0]
@@ -530,7 +622,7 @@ def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_cz_ms, cfg, composition
         zq = np.nanquantile(zs[rows], q, axis=1)
         pick = np.nanargmin(np.abs(np.where(np.isfinite(zs[rows]), zs[rows], np.inf) - zq[:, None]), axis=1)
         target[rows], _ = _lifetimes(grid, mass[rows, pick], z[rows, pick], eep[rows, pick],
-                                     m_cz_max[rows, pick], m_cz_ms[rows, pick], cfg, composition,
+                                     m_cz_max[rows, pick], m_pres[rows, pick], cfg, composition,
                                      reference, deposit[rows, pick])
     return lo, hi
 
@@ -539,7 +631,8 @@ def _is_other_planet_column(name: str) -> bool:
     return name.startswith(OTHER_PLANET_PREFIXES) and name.endswith("mj")
 
 
-def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, mid, cfg, reference):
+def _other_planets(grid, mass, z, eep, model, gb, m_cz, m_cz_max, m_pres, rep, mid, cfg, reference,
+                   lookup):
     """z, P(z >= threshold) and lifetime for each extra planet mass of the config (each
     with its own disruption depth)."""
     cols = {}
@@ -549,10 +642,10 @@ def _other_planets(grid, mass, z, eep, model, m_cz, m_cz_max, m_cz_ms, rep, mid,
         comp = planet_composition(cfg_m)
         _, dep = _deposition(grid, mass[r, mid], z[r, mid], eep[r, mid], cfg_m)
         dep = np.repeat(dep[:, None], mass.shape[1], axis=1)
-        li = _lithium_at(grid, mass, z, model["age_myr"], m_cz, m_cz_max, m_cz_ms, cfg_m, comp,
-                         where=model, reference=reference, deposit=dep)
+        li = _lithium_at(grid, mass, z, eep, model, m_cz, m_cz_max, m_pres, gb, cfg_m, comp,
+                         reference=reference, deposit=dep, lookup=lookup)
         life, _ = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                             m_cz_ms[r, rep], cfg_m, comp, reference, dep[r, rep])
+                             m_pres[r, rep], cfg_m, comp, reference, dep[r, rep])
         tag = f"{m:g}mj"
         cols[f"z_enrich_{tag}"] = np.nanmedian(li["z"], axis=1)
         cols[f"p_detect_{tag}"] = np.mean(li["z"] >= cfg.thresholds.z_signature, axis=1)
@@ -586,56 +679,60 @@ def _b_v0(df, params):
     return np.where(np.isfinite(observed), observed, from_teff)
 
 
-def _rotation_columns(out, df, params, radius_ms, cfg):
-    """Rotation evidence (SCIENCE.md §11): observed and expected v_eq, the anomaly, the
-    planet mass the spin-up needs, and the prior odds of an engulfment it implies."""
+def _rotation_columns(out, df, params, age_samples, cfg):
+    """Rotation evidence (``rotation.rotation_evidence``): observed and expected v_eq, the
+    anomaly, the spin-up the configured planet would give, the planet the spin excess
+    needs, and the bounded likelihood ratio of a recent engulfment."""
     n = len(out)
     radius = out["radius_rsun"].to_numpy(float)
     radius = np.where(radius > 0, radius, np.nan)
     prot, prot_err = _column(df, "prot_d"), _column(df, "prot_d_err")
+    prot = np.where(prot > 0, prot, np.nan)
     vsini, vsini_err = _column(df, "vsini_kms"), _column(df, "vsini_kms_err")
+    vsini = np.where(vsini >= 0, vsini, np.nan)
     stage = out["stage"].to_numpy(object)
     stage_ok = np.isin(stage, st.STAGES)
     b_v0 = _b_v0(df, params)
-    cluster_seq = None
+    cluster_period = np.full(n, np.nan)
+    cluster_ln = np.full(n, np.nan)
     if "cluster" in df.columns and np.isfinite(prot).sum() >= 9:
-        cluster_seq = _cluster_sequences(df["cluster"].astype(str).to_numpy(), b_v0, prot, stage)
-    exp = rotation.expected_rotation(
-        np.where(stage_ok, stage, "main_sequence"), np.where(np.isfinite(radius), radius, 1.0),
-        b_v0=b_v0, age_myr=out["age_gyr"].to_numpy(float) * 1e3,
-        mass_msun=out["mass_msun"].to_numpy(float), radius_ms_rsun=radius_ms,
-        gyro_relation=cfg.rotation.gyro_relation,
-        cluster_sequence=cluster_seq, cluster_color=b_v0)
-    usable = stage_ok & np.isfinite(radius)
-    v_exp = np.where(usable, exp.veq_expected_kms, np.nan)
-    v_spread = np.where(usable, exp.veq_expected_spread_kms, np.nan)
-    veq = rotation.equatorial_velocity_kms(np.where(np.isfinite(radius), radius, 1.0), prot)
-    veq = np.where(np.isfinite(radius), veq, np.nan)
+        seq = _cluster_sequences(df["cluster"].astype(str).to_numpy(), b_v0, prot, stage)
+        if seq is not None:
+            cluster_period, spread = seq.predict(b_v0)
+            cluster_ln = spread / cluster_period
+    veq = 2.0 * np.pi * radius * R_SUN_CM / 1e5 / (prot * 86400.0)
     veq_err = veq * np.hypot(np.nan_to_num(prot_err / prot), RADIUS_FRACTIONAL_ERROR)
-    observed = np.where(np.isfinite(veq), veq, vsini)
-    observed_err = np.where(np.isfinite(veq), veq_err,
-                            np.where(np.isfinite(vsini_err), vsini_err, VSINI_DEFAULT_ERROR_KMS))
-    anomaly = rotation.rotation_anomaly_sigma(observed, observed_err, v_exp, v_spread)
+    mass = out["mass_msun"].to_numpy(float)
+    m_cz = np.minimum(out["m_cz_msun"].to_numpy(float), mass)   # initial vs current mass
+    usable = stage_ok & np.isfinite(radius) & np.isfinite(mass)
+    spin_up = np.full(n, np.nan)
+    spin_up[usable] = rotation.engulfment_spin_up_kms(cfg.planet.mass_mjup, mass[usable], radius[usable],
+                                                      m_cz[usable], stage[usable])
+    ev = rotation.rotation_evidence(
+        np.where(stage_ok, stage, ""), out["teff_k"].to_numpy(float), mass, radius, b_v0, age_samples,
+        veq, veq_err, vsini, vsini_err, spin_up, out["lifetime_myr"].to_numpy(float),
+        cluster_period_d=cluster_period, cluster_ln_scatter=cluster_ln,
+        gyro_relation=cfg.rotation.gyro_relation,
+        other_cause_fraction=cfg.rotation.other_cause_fraction)
     exceeds, vnote = rotation.vsini_consistency(vsini, vsini_err, radius, RADIUS_FRACTIONAL_ERROR * radius,
                                                 prot, prot_err)
     out["veq_kms"] = veq
-    out["veq_expected_kms"] = v_exp
-    out["veq_expected_spread_kms"] = v_spread
-    out["rot_expect_source"] = np.where(usable, exp.rot_expect_source, "")
+    out["veq_expected_kms"] = np.where(usable, ev.veq_expected_kms, np.nan)
+    out["veq_expected_spread_kms"] = np.where(usable, ev.veq_expected_spread_kms, np.nan)
+    out["rot_expect_source"] = np.where(usable, ev.rot_expect_source, "")
+    anomaly = np.where(usable, ev.rot_anomaly_sigma, np.nan)
     out["rot_anomaly_sigma"] = anomaly
-    rapid = rotation.rapid_rotator_flag(vsini, np.where(stage_ok, stage, "main_sequence"), v_exp, v_spread)
-    out["rapid_rotator"] = (rapid & stage_ok) | (anomaly >= cfg.rotation.rapid_anomaly_sigma)
-    mass = out["mass_msun"].to_numpy(float)
-    m_cz = np.minimum(out["m_cz_msun"].to_numpy(float), mass)   # initial vs current mass
-    frac = np.clip(m_cz / mass, 0.0, 1.0)
-    k2_env = THIN_SHELL_K2 + (rotation.K2_POLYTROPE_N15 - THIN_SHELL_K2) * np.clip(frac / 0.5, 0, 1)
-    excess = np.clip(observed - v_exp, 0.0, None)
-    ok = np.isfinite(excess) & (m_cz > 0) & np.isfinite(radius)
-    spin = np.full(n, np.nan)
-    spin[ok] = rotation.planet_mass_for_spin_mjup(excess[ok], mass[ok], radius[ok], m_cz[ok], k2_env[ok])
-    out["m_planet_spin_mjup"] = spin
-    out["spin_li_consistency"] = rotation.spin_lithium_consistency(spin, out["m_planet_min_mjup"].to_numpy(float))
-    out["p_engulfed_rotation"] = rotation.engulfment_prior_odds(anomaly, base_odds=cfg.rotation.base_odds)
+    out["rapid_rotator"] = np.nan_to_num(anomaly, nan=-np.inf) >= cfg.rotation.rapid_anomaly_sigma
+    observed = np.where(np.isfinite(veq), veq, vsini)
+    excess = np.clip(observed - out["veq_expected_kms"].to_numpy(float), 0.0, None)
+    # the spin-up is linear in the planet mass: the planet for the excess is its inverse
+    out["m_planet_spin_mjup"] = np.where(spin_up > 0, excess * cfg.planet.mass_mjup / spin_up, np.nan)
+    out["spin_li_consistency"] = rotation.spin_lithium_consistency(out["m_planet_spin_mjup"].to_numpy(float),
+                                                                   out["m_planet_min_mjup"].to_numpy(float))
+    out["spin_up_kms"] = spin_up
+    out["spin_visible_fraction"] = np.where(usable, ev.spin_visible_fraction, np.nan)
+    out["rotation_likelihood_ratio"] = np.where(usable & np.isfinite(ev.rotation_likelihood_ratio),
+                                                ev.rotation_likelihood_ratio, 1.0)
     out["note"] = _append(out.get("note", pd.Series([""] * n)).fillna("").to_numpy(object),
                           np.where(exceeds, vnote, ""))
 
@@ -685,9 +782,14 @@ def _observing_columns(out, df, model_logg, cfg):
     broadening = np.where(np.isfinite(vsini), vsini,
                           np.pi / 4 * np.nan_to_num(out["veq_expected_kms"].to_numpy(float)))
     fwhm = spectra.line_fwhm_angstrom(inst.resolving_power, teff, broadening)
-    delta = ew_new - ew_base
+    # the line a non-enriched star would show: the baseline, or the detection limit
+    # where the baseline is a set of upper limits (the same censored comparison as z)
+    ew_compared = np.fmax(ew_base, np.nan_to_num(cfg.observing.ew_floor_mA))
+    delta = ew_new - ew_compared
+    measurable = np.isfinite(delta) & (delta >= max(cfg.observing.ew_floor_mA, 0.0)) & (delta > 0)
     snr = spectra.snr_needed(np.where(delta > 0, delta, np.nan), fwhm, inst.pixel_width_angstrom(),
                              k_sigma=cfg.observing.k_sigma)
+    snr = np.fmax(snr, cfg.observing.min_snr_per_pixel)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PrioritizeWarning)  # colour-range warnings: noted per row below
         r_gaia = exposure.r_c_from_gaia(_column(df, "g_mag"), _column(df, "bp_rp"))
@@ -702,7 +804,8 @@ def _observing_columns(out, df, model_logg, cfg):
     out["snr_at_exposure"] = plan.snr_reached
     out["overhead_s"] = np.where(np.isfinite(plan.exposure_s), plan.overhead_s, np.nan)
     out["time_on_target_s"] = plan.total_s
-    out["p_measured"] = np.clip((plan.snr_reached / snr) ** 2, 0.0, 1.0)
+    out["delta_ew_measurable"] = measurable
+    out["p_measured"] = np.where(measurable, np.clip((plan.snr_reached / snr) ** 2, 0.0, 1.0), 0.0)
     out["instrument"] = inst.name
     computed = np.isfinite(teff) & np.isfinite(out["a_li_enriched"].to_numpy(float))
     lines, missing = spectra.lines_to_measure(
@@ -712,6 +815,11 @@ def _observing_columns(out, df, model_logg, cfg):
         feh=np.nan_to_num(feh), vsini_kms=np.nan_to_num(broadening), k_sigma=cfg.observing.k_sigma)
     out["lines_to_measure"] = np.where(computed, ["; ".join(x) for x in lines], "")
     out["coverage_missing"] = np.where(computed, ["; ".join(x) for x in missing], "")
+    small = computed & np.isfinite(delta) & ~measurable
+    out["note"] = _append(out["note"].to_numpy(object),
+                          np.where(small, f"EW(6708) rise below the {cfg.observing.ew_floor_mA:g} mA systematic "
+                                          "floor (continuum placement, Fe I 6707.4 blend): not counted as "
+                                          "measurable", ""))
     no_mag = computed & ~np.isfinite(r_c)
     out["note"] = _append(out["note"].to_numpy(object),
                           np.where(no_mag, "no magnitude for an exposure estimate (give g_mag+bp_rp "

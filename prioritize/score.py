@@ -1,15 +1,18 @@
 """The priority of a candidate and the ranking.
 
-priority = expected detections per hour of telescope time (SCIENCE.md §20):
+priority = expected detections per hour of telescope time:
 
-    P(engulfed | rotation, structure) x P(z >= z_thr | engulfed) x P(measured) / hours
+    P(engulfed | history, rotation) x P(z >= z_thr | engulfed) x P(measured) / hours
 
-with P(engulfed | ...) = rotation prior odds x lifetime weight w(t),
-w(t) = t / (t + t_scale) for t >= t_min, else 0.  The chance of catching a star while
-its signature stands grows with the signature's lifetime t (a star engulfing at a
-random time is seen enriched for a fraction of time ∝ t); the saturating form keeps a
-few very long-lived signatures from swamping the list.  Every factor is its own
-output column; ``explain`` shows the arithmetic.
+P(engulfed | history, rotation) starts from the star's own history — the probability
+that it engulfed a planet of the configured mass within the signature's lifetime
+before now (``engulfment.engulfment_probability``; it grows with the lifetime and
+with the radius the star swept through) — and is updated by the rotation evidence, a
+bounded likelihood ratio (``rotation.rotation_evidence``):
+
+    P = p LR / (1 - p + p LR).
+
+Every factor is its own output column; ``explain`` shows the arithmetic.
 """
 
 from __future__ import annotations
@@ -20,23 +23,37 @@ import pandas as pd
 from .catalog import status as st
 
 
-def lifetime_weight(lifetime_myr, min_lifetime_myr, scale_myr):
-    """w(t) = t/(t + t_scale) for t >= t_min, 0 below; NaN stays NaN."""
-    t = np.asarray(lifetime_myr, dtype=float)
-    w = t / (t + scale_myr)
-    return np.where(np.isnan(t), np.nan, np.where(t >= min_lifetime_myr, w, 0.0))
+def engulfed_posterior(p_history, likelihood_ratio):
+    """P(engulfed | history, rotation) = p LR / (1 - p + p LR).
+
+    Parameters
+    ----------
+    p_history : array_like
+        Prior probability of a recent engulfment from the star's history, in [0, 1).
+    likelihood_ratio : array_like
+        p(rotation | engulfed) / p(rotation | not); 1 (no information) where NaN.
+
+    Returns
+    -------
+    ndarray
+        Posterior probability; NaN where ``p_history`` is NaN.
+    """
+    p = np.asarray(p_history, dtype=float)
+    lr = np.asarray(likelihood_ratio, dtype=float)
+    lr = np.where(np.isfinite(lr), lr, 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return p * lr / (1.0 - p + p * lr)
 
 
 def detections_per_hour(p_engulfed, p_detect, p_measured, time_on_target_s):
     """Expected detections per hour of telescope time.
 
-        priority = P(engulfed | rotation, structure) x P(z >= thr | engulfed) x P(measured)
+        priority = P(engulfed | history, rotation) x P(z >= thr | engulfed) x P(measured)
                    / (exposure + overhead in hours)
 
-    P(engulfed | ...) is the rotation-based prior odds times the lifetime weight (the
-    chance that an engulfment is recent enough to still show); P(measured) is 1 when the
-    exposure reaches the S/N needed and falls as (S/N reached / S/N needed)^2 when the
-    exposure ceiling stops short (the fraction of the needed photons collected).
+    P(measured) is 1 when the exposure reaches the S/N needed and falls as
+    (S/N reached / S/N needed)^2 when the exposure ceiling stops short (the fraction of
+    the needed photons collected); 0 where the line change is below the systematic floor.
     """
     hours = np.asarray(time_on_target_s, dtype=float) / 3600.0
     with np.errstate(divide="ignore", invalid="ignore"):

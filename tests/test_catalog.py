@@ -85,7 +85,7 @@ def test_output_columns_have_units_and_descriptions():
     for name in ("star_id", "rank", "priority", "status", "note", "mass_msun", "mass_err_msun", "age_gyr",
                  "stage", "teff_k", "logl_lsun", "radius_rsun", "feh", "m_cz_msun", "a_li_base",
                  "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "lifetime_myr", "lifetime_end",
-                 "p_detect", "lifetime_weight", "placement_method", "teff_source", "logl_source",
+                 "p_detect", "p_engulfed_history", "placement_method", "teff_source", "logl_source",
                  "feh_source", "baseline_source", "eep", "age_err_gyr"):
         assert OUTPUT_COLUMNS[name].description
     assert OUTPUT_COLUMNS["lifetime_myr"].unit == "Myr" and OUTPUT_COLUMNS["m_cz_msun"].unit == "Msun"
