@@ -35,12 +35,19 @@ DENSE_MASS_STEP = 0.02         # M_sun; interpolated between grid tracks for pla
 CHI2_LIMIT = 25.0              # a star whose nearest model is > 5 sigma away is "not explained"
 DEFAULT_ERRORS = {"teff_k": 100.0, "logl_lsun": 0.1, "logg": 0.2, "feh": 0.2,
                   "mass_frac": 0.10}  # used (and noted) when the catalog gives no error
-EXACT_FLOOR = {"teff_k": 1e-3, "logg": 1e-6}  # an error of 0 means exact: kept finite for the arithmetic
+EXACT_FLOOR = {"teff_k": 1e-3, "logg": 1e-6, "logl_lsun": 1e-6}  # an error of 0 means exact: kept finite for the arithmetic
 FEH_FLOOR_DEX = 0.05           # half the grid's metallicity spacing, added in quadrature
 _SCALE = np.array([0.005, 0.03, 0.1])   # tree coordinates: log Teff, log L (or logg/2), [Fe/H]
 K_NEIGHBOURS = 4096
 POSTERIOR_CHUNK = 500           # stars per chunk (bounds memory: chunk x K_NEIGHBOURS points)
 MAX_AGE_MYR = 13800.0          # no star is older than the Universe (Planck 2018: 13.8 Gyr)
+CLASH_SIGMA = 3.0              # a measurement this far from the placed model gets a note
+INITIAL_MASS_NOTE_MSUN = 0.02  # initial minus current mass above which the note gives the initial mass
+GIANT_BRANCH_STAGES = (3, 4)   # indices of lower_giant_branch, upper_giant_branch in evolution.STAGES
+# name -> default error, error floor (an error of 0 means exact), unit text, number format
+_MEASUREMENT_DEFAULTS = {"Teff": (DEFAULT_ERRORS["teff_k"], EXACT_FLOOR["teff_k"], " K", ".0f"),
+                         "log L": (DEFAULT_ERRORS["logl_lsun"], EXACT_FLOOR["logl_lsun"], "", ".2f"),
+                         "logg": (DEFAULT_ERRORS["logg"], EXACT_FLOOR["logg"], "", ".2f")}
 
 
 @dataclass
@@ -90,65 +97,235 @@ def _eep_time_weight(age_myr):
     return np.abs(np.gradient(age_myr, axis=-1))
 
 
+def _initial_mass_for_current(grid: TrackGrid, current, z, eep):
+    """Initial mass whose track has the current mass ``current`` at each EEP.
+
+    The grid interpolates linearly in initial mass, so the current mass at a fixed
+    (Z, EEP) is piecewise linear between the grid's tracks; it is inverted exactly by
+    bracketing the target between neighbouring tracks.  NaN where no track of the
+    grid reaches that current mass there (or the phase is missing).
+
+    Parameters
+    ----------
+    grid : TrackGrid
+        The track grid (column ``mass_msun``: current mass after winds).
+    current : ndarray, shape (n, m)
+        Current masses (M_sun) per star and mass node.
+    z : ndarray, shape (n,)
+        Metal mass fraction per star, inside the grid.
+    eep : ndarray, shape (n, e)
+        EEP nodes per star.
+
+    Returns
+    -------
+    ndarray, shape (n, m, e)
+        Initial masses (M_sun).
+    """
+    tracks = grid.masses
+    now = grid.interpolate(np.broadcast_to(tracks[None, :, None], (z.size, tracks.size, eep.shape[1])),
+                           z[:, None, None], eep[:, None, :], columns=["mass_msun"])["mass_msun"]
+    target = current[:, :, None]
+    ordered = np.where(np.isnan(now), -np.inf, now)   # tracks without the phase sit at the low end
+    above = np.zeros(target.shape[:2] + (eep.shape[1],), dtype=int)
+    for k in range(tracks.size):
+        above += ordered[:, None, k, :] <= target
+    upper = np.clip(above, 1, tracks.size - 1)
+    take = np.broadcast_to(upper[:, :, None, :], above.shape[:2] + (1, eep.shape[1]))
+    wide = np.broadcast_to(now[:, None], (now.shape[0], above.shape[1]) + now.shape[1:])
+    m_hi = np.take_along_axis(wide, take, axis=2)[:, :, 0]
+    m_lo = np.take_along_axis(wide, take - 1, axis=2)[:, :, 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = (target - m_lo) / (m_hi - m_lo)
+    initial = tracks[upper - 1] + frac * (tracks[upper] - tracks[upper - 1])
+    inside = (frac >= 0) & (frac <= 1) & np.isfinite(frac)
+    return np.where(inside, initial, np.nan)
+
+
+def _gaussian_log_likelihood(model, observed, error, default, floor):
+    """-chi^2/2 of a Gaussian measurement (0 where nothing was observed) and the error used."""
+    observed = np.asarray(observed, dtype=float)
+    error = np.asarray(error, dtype=float)
+    sigma = np.maximum(np.where(np.isfinite(error), error, default), floor)
+    chi2 = ((model - observed[:, None, None]) / sigma[:, None, None]) ** 2
+    return -0.5 * np.where(np.isfinite(observed)[:, None, None], chi2, 0.0), sigma
+
+
 def place_by_mass_stage(grid: TrackGrid, mass, mass_err, stage, feh, rng, n_samples,
-                        teff=None, teff_err=None, logg=None, logg_err=None,
-                        n_mass_nodes=9, n_eep_nodes=40) -> Placement:
+                        teff=None, teff_err=None, logg=None, logg_err=None, logl=None,
+                        logl_err=None, n_mass_nodes=9, n_eep_nodes=40) -> Placement:
     """Samples for stars with a catalog mass and stage.
 
-    Mass nodes are the mid-quantiles of N(mass, mass_err) (10% when no error is
-    given; an error of 0 means the mass is exact); along the stage, EEP nodes are weighted by the time spent there and, if
-    Teff or logg are known, by their Gaussian likelihood.  Giant-branch stages keep
-    only points on the requested side of the track's RGB bump.
+    The catalog's ``mass_msun`` is read as the star's **current** mass — what binaries,
+    asteroseismic scaling relations or log g with a radius measure — and is matched
+    to the track's current mass (after wind mass loss) at every point; the samples
+    carry the track's initial mass, so a red-clump star of 1.0 M_sun now sits on a
+    track that started heavier (a note gives the initial mass when it differs).
+
+    Posterior per star, on mass nodes x EEP nodes:
+
+    - mass nodes: the mid-quantiles of N(mass, mass_err) (10 % when no error is
+      given; an error of 0 means exact), each with the same weight: the catalog's
+      mass is the measurement, and nothing along the track reweights it.  A node
+      drops out only where no model of that current mass exists on the stage
+      within the age of the Universe (:data:`MAX_AGE_MYR`);
+    - at each mass node, the EEP nodes of the stage are weighted by the time spent
+      there (dt) times the Gaussian likelihood of Teff, log L and log g where given,
+      normalised over the stage: w(m, e) = q(m) dt L(m, e) / sum_e dt L(m, e).
+
+    Stage rule.  Main sequence, turnoff, subgiant and red clump: the stage is kept
+    as given.  Giant branch: ``lower_giant_branch`` and ``upper_giant_branch`` name
+    the side of the track's RGB bump; where log L is known, the whole branch is
+    open and L decides the side (a generic "RGB" normalises to the lower branch, so
+    a bright "RGB" star moves above the bump, with a note); without L the given side
+    is kept.  Wherever Teff, log L or log g is more than :data:`CLASH_SIGMA` from the
+    placed model (the samples' median), the row gets a note naming the value, the
+    model's and the distance in sigma; the placement is not changed by it.
+
+    Parameters
+    ----------
+    grid : TrackGrid
+        The track grid.
+    mass, mass_err : array_like
+        Current mass and its 1-sigma error (M_sun); NaN error = 10 %.
+    stage : array_like of str
+        Canonical stage names (:data:`prioritize.catalog.status.STAGES`).
+    feh : array_like
+        [Fe/H] (dex), clamped to the grid's range.
+    rng : numpy.random.Generator
+        Random stream for the resampling.
+    n_samples : int
+        Samples per star.
+    teff, teff_err : array_like, optional
+        Effective temperature and error (K); NaN = not known (error default 100 K).
+    logg, logg_err : array_like, optional
+        log10 g (cgs) and error (dex); NaN = not known (error default 0.2 dex).
+    logl, logl_err : array_like, optional
+        log10 L/L_sun and error (dex); NaN = not known (error default 0.1 dex).
+    n_mass_nodes, n_eep_nodes : int
+        Nodes per star in mass and along the stage.
+
+    Returns
+    -------
+    Placement
+        ``chi2_min`` is NaN (this route fits no position).
+
+    References
+    ----------
+    Hurley J. R., Pols O. R. & Tout C. A. 2000, MNRAS 315, 543 (tracks with Reimers
+    wind mass loss on the giant branch); Miglio A. et al. 2012, MNRAS 419, 2077
+    (asteroseismic masses of red giants are current masses; mass lost on the RGB).
     """
     n = len(mass)
     mass = np.asarray(mass, dtype=float)
-    err = np.where(np.isfinite(mass_err), np.maximum(np.asarray(mass_err, float), 0.0),
-                   DEFAULT_ERRORS["mass_frac"] * mass)
+    given_err = np.asarray(mass_err, dtype=float)
+    err = np.where(np.isfinite(given_err), np.maximum(given_err, 0.0), DEFAULT_ERRORS["mass_frac"] * mass)
     q = (np.arange(n_mass_nodes) + 0.5) / n_mass_nodes
-    m_nodes = mass[:, None] + err[:, None] * norm.ppf(q)[None, :]
+    current = mass[:, None] + err[:, None] * norm.ppf(q)[None, :]
     frac = (np.arange(n_eep_nodes) + 0.5) / n_eep_nodes
     stage = np.asarray(stage, dtype=object)
+    wanted = np.array([evolution.STAGES.index(s) if s in evolution.STAGES else -2 for s in stage])
+    giant = np.isin(wanted, GIANT_BRANCH_STAGES)
+    has_l = np.isfinite(np.full(n, np.nan) if logl is None else np.asarray(logl, float))
     lo = np.empty(n)
     hi = np.empty(n)
     for name in np.unique(stage):
         sel = stage == name
         lo[sel], hi[sel] = evolution.stage_eep_range(name, PHASE_EEPS)
-    e_nodes = lo[:, None] + frac[None, :] * (hi - lo)[:, None]
+    ee = np.repeat((lo[:, None] + frac[None, :] * (hi - lo)[:, None])[:, None, :], n_mass_nodes, axis=1)
     zc, clamped = _clamp_z(grid, feh)
-    mm = np.repeat(m_nodes[:, :, None], n_eep_nodes, axis=2)
-    ee = np.repeat(e_nodes[:, None, :], n_mass_nodes, axis=1)
-    zz = np.broadcast_to(zc[:, None, None], mm.shape)
-    cols = grid.interpolate(mm, zz, ee, columns=["age_myr", "logteff", "logg", "logl"])
+    zz = np.broadcast_to(zc[:, None, None], ee.shape)
+    mm = _initial_mass_for_current(grid, current, zc, ee[:, 0, :])
+    cols = grid.interpolate(np.where(np.isfinite(mm), mm, 0.0), zz, ee,
+                            columns=["age_myr", "logteff", "logg", "logl"])
+    cols = {k: np.where(np.isfinite(mm), v, np.nan) for k, v in cols.items()}
     with np.errstate(divide="ignore"):
         logw = np.log(_eep_time_weight(cols["age_myr"]))
-    if teff is not None:
-        t_obs = np.asarray(teff, float)[:, None, None]
-        t_err = np.maximum(np.where(np.isfinite(teff_err), teff_err, DEFAULT_ERRORS["teff_k"]),
-                           EXACT_FLOOR["teff_k"])[:, None, None]
-        chi2 = ((10 ** cols["logteff"] - t_obs) / t_err) ** 2
-        logw = logw - 0.5 * np.where(np.isfinite(t_obs), chi2, 0.0)
-    if logg is not None:
-        g_obs = np.asarray(logg, float)[:, None, None]
-        g_err = np.maximum(np.where(np.isfinite(logg_err), logg_err, DEFAULT_ERRORS["logg"]),
-                           EXACT_FLOOR["logg"])[:, None, None]
-        chi2 = ((cols["logg"] - g_obs) / g_err) ** 2
-        logw = logw - 0.5 * np.where(np.isfinite(g_obs), chi2, 0.0)
-    bump = evolution.rgb_bump(grid, mm, zz)[1]
+    logw = np.where(cols["age_myr"] <= MAX_AGE_MYR, logw, -np.inf)
+    bump = evolution.rgb_bump(grid, np.where(np.isfinite(mm), mm, 0.0), zz)[1]
     st = evolution.stage_index(ee, cols["logl"], bump, PHASE_EEPS)
-    wanted = np.array([evolution.STAGES.index(s) if s in evolution.STAGES else -2 for s in stage])
-    giant = np.isin(wanted, (3, 4))
-    logw = np.where(giant[:, None, None] & (st != wanted[:, None, None]), -np.inf, logw)
-    logw = np.where(np.isnan(logw), -np.inf, logw).reshape(n, -1)
-    best = logw.max(axis=1, keepdims=True)
-    w = np.where(np.isfinite(best), np.exp(logw - np.where(np.isfinite(best), best, 0.0)), 0.0)
-    placed = w.sum(axis=1) > 0
+    logw = np.where((giant & ~has_l)[:, None, None] & (st != wanted[:, None, None]), -np.inf, logw)
+    in_stage = np.isfinite(logw)
+    observed = []
+    for name, model, value, error in (("Teff", 10 ** cols["logteff"], teff, teff_err),
+                                      ("log L", cols["logl"], logl, logl_err),
+                                      ("logg", cols["logg"], logg, logg_err)):
+        if value is None:
+            continue
+        default, floor = _MEASUREMENT_DEFAULTS[name][:2]
+        loglike, sigma = _gaussian_log_likelihood(model, value, np.full(n, np.nan) if error is None
+                                                  else error, default, floor)
+        logw = logw + loglike
+        observed.append((name, model, np.asarray(value, float), sigma))
+    logw = np.where(np.isnan(logw), -np.inf, logw)
+    best = logw.max(axis=2, keepdims=True)
+    node_ok = np.isfinite(best)
+    w = np.where(node_ok, np.exp(logw - np.where(node_ok, best, 0.0)), 0.0)
+    w = w / np.where(node_ok, w.sum(axis=2, keepdims=True), 1.0)
+    placed = node_ok.any(axis=(1, 2))
     note = np.full(n, "", dtype=object)
-    note[~np.isfinite(np.asarray(mass_err, float))] = \
-        "mass error assumed 10%"
+    note[~np.isfinite(given_err)] = "mass error assumed 10%"
     note[clamped] = _join(note[clamped], "[Fe/H] clamped to the grid range")
-    note[~placed] = _join(note[~placed], "mass/stage outside the track grid")
-    return _collect(placed, w, mm.reshape(n, -1), zz.reshape(n, -1), ee.reshape(n, -1),
-                    n_samples, rng, note, np.full(n, np.nan))
+    partly = placed & ~node_ok.all(axis=(1, 2))
+    note[partly] = _join(note[partly], [
+        f"{_mass_range_text(current[i], node_ok[i, :, 0])} has no {stage[i]} model within "
+        f"{MAX_AGE_MYR / 1e3:g} Gyr: left out" for i in np.flatnonzero(partly)])
+    never = ~placed & in_stage.reshape(n, -1).any(axis=1)
+    note[never] = _join(note[never], [f"no {stage[i]} model of this mass within "
+                                      f"{MAX_AGE_MYR / 1e3:g} Gyr (the age of the Universe)"
+                                      for i in np.flatnonzero(never)])
+    outside = ~placed & ~never
+    note[outside] = _join(note[outside], "mass/stage outside the track grid")
+    return _mass_stage_samples(placed, w.reshape(n, -1), n_samples, rng, note, stage, {
+        "mass": mm, "z": zz, "eep": ee, "stage": st, "bump": bump, "current": np.repeat(
+            current[:, :, None], n_eep_nodes, axis=2)}, observed, wanted, giant & has_l, logl)
+
+
+def _mass_stage_samples(placed, w, n_samples, rng, note, stage, nodes, observed, wanted, split_by_l,
+                        logl) -> Placement:
+    """Resample the mass+stage nodes and add the notes that compare the placed samples
+    with what the catalog said (stage side, clashing measurements, initial mass)."""
+    n = placed.size
+    idx = np.flatnonzero(placed)
+    if idx.size == 0:
+        out = empty_placement(n)
+        out.note = note
+        return out
+    pick = _resample(w[idx], n_samples, rng)
+    rows = idx[:, None]
+
+    def at(values):
+        return np.reshape(values, (n, -1))[rows, pick]
+
+    mass = at(nodes["mass"])
+    stage_index = at(nodes["stage"])
+    counts = np.stack([(stage_index == k).sum(axis=1) for k in range(len(evolution.STAGES))], axis=1)
+    moved = split_by_l[idx] & (counts.argmax(axis=1) != wanted[idx])
+    for i, k, bump in zip(idx[moved], counts.argmax(axis=1)[moved], np.nanmedian(at(nodes["bump"]), axis=1)[moved]):
+        side = "above" if evolution.STAGES[k] == "upper_giant_branch" else "below"
+        note[i] = _join(note[i], f"stage given as {stage[i]}, but log L = {logl[i]:.2f} is {side} this "
+                                 f"track's RGB bump (log L {bump:.2f}): placed on {evolution.STAGES[k]}")
+    for name, model, value, sigma in observed:
+        median = np.nanmedian(at(model), axis=1)
+        distance = np.abs(median - value[idx]) / sigma[idx]
+        clash = np.isfinite(distance) & (distance > CLASH_SIGMA)
+        unit, fmt = _MEASUREMENT_DEFAULTS[name][2:]
+        for i, v, s, m, d in zip(idx[clash], value[idx][clash], sigma[idx][clash], median[clash],
+                                 distance[clash]):
+            note[i] = _join(note[i], f"{name} = {v:{fmt}} ± {s:{fmt}}{unit} given, the placed model has "
+                                     f"{m:{fmt}}{unit} ({d:.1f} sigma): check the mass, stage and {name}")
+    initial = mass.mean(axis=1)
+    lost = initial - at(nodes["current"]).mean(axis=1) > INITIAL_MASS_NOTE_MSUN
+    for i, m in zip(idx[lost], initial[lost]):
+        note[i] = _join(note[i], f"initial mass {m:.2f} Msun (mass_msun is read as the current mass; "
+                                 "the track lost mass in winds on the giant branch)")
+    return Placement(np.repeat(idx, n_samples), mass.ravel(), at(nodes["z"]).ravel(),
+                     at(nodes["eep"]).ravel(), placed, note, np.full(n, np.nan))
+
+
+def _mass_range_text(current, kept):
+    """'current masses 0.84-0.92 Msun' for the mass nodes that were left out."""
+    dropped = current[~kept]
+    return f"current mass {dropped.min():.2f}-{dropped.max():.2f} Msun"
 
 
 def _join(a, b):
@@ -284,7 +461,8 @@ def place_on_isochrone(grid: TrackGrid, teff, teff_err, logl, logl_err, age_gyr,
 
     Each member's weight over isochrone points is its Gaussian likelihood in
     (log Teff, log L) times the initial-mass function and the mass step; members
-    share the isochrone of their (age, [Fe/H]) group.
+    share the isochrone of their (age, [Fe/H]) group.  A cluster age above
+    :data:`MAX_AGE_MYR` is taken as that age, with a note.
     """
     n = len(teff)
     note = np.full(n, "", dtype=object)
@@ -296,6 +474,10 @@ def place_on_isochrone(grid: TrackGrid, teff, teff_err, logl, logl_err, age_gyr,
     l_err = np.where(np.isfinite(logl_err) & (np.asarray(logl_err, float) > 0), logl_err,
                      DEFAULT_ERRORS["logl_lsun"])
     age = np.asarray(age_gyr, float) * 1000.0
+    too_old = age > MAX_AGE_MYR
+    note[too_old] = _join(note[too_old], f"cluster age above the age of the Universe: "
+                                         f"{MAX_AGE_MYR / 1e3:g} Gyr used")
+    age = np.where(too_old, MAX_AGE_MYR, age)
     k = 256
     weights = np.zeros((n, k))
     mass = np.zeros((n, k))
