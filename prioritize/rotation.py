@@ -22,7 +22,7 @@ The chain and the column names it fills (units in the name):
 4. Spin-up by an engulfed planet: :func:`spin_up_velocity_kms` and its exact inverse
    :func:`planet_mass_for_spin_mjup` → ``m_planet_spin_mjup``; comparison with the
    lithium minimum planet (:func:`spin_lithium_consistency` → ``spin_li_consistency``).
-5. Score factor: ``p_engulfed_rotation`` (:func:`engulfment_prior_odds`).
+5. Evidence: ``rotation_likelihood_ratio`` and ``rot_anomaly_sigma`` (:func:`rotation_evidence`).
 6. Line width: ``rot_fwhm_angstrom`` (:func:`rotational_fwhm_angstrom`) for the
    observing-cost stage.
 
