@@ -230,7 +230,7 @@ def test_routes_follow_the_engine_precedence():
         "cluster_age_gyr": [np.nan, 2.0, np.nan, np.nan, np.nan, np.nan, 2.0, np.nan],
         "g_mag": [12.0, 12.0, 12.0, np.nan, 12.0, np.nan, 12.0, 12.0],
         "parallax_mas": [1.0, 1.0, 1.0, np.nan, -0.5, np.nan, 1.0, np.nan],
-        "bp_rp": [np.nan, np.nan, 1.1, np.nan, 1.1, np.nan, np.nan, np.nan],
+        "bp_rp": [np.nan, 1.0, 1.1, np.nan, 1.1, np.nan, np.nan, np.nan],
         "teff_k": [np.nan, np.nan, np.nan, 4800.0, np.nan, np.nan, np.nan, np.nan],
         "logg": [np.nan, np.nan, np.nan, 2.5, np.nan, 2.5, np.nan, np.nan],
     })
@@ -244,6 +244,17 @@ def test_routes_follow_the_engine_precedence():
     assert "a magnitude without parallax or distance" in notes[7]
 
 
+def test_a_colour_outside_its_relation_is_missing_inputs_as_in_the_chain():
+    """BP-RP = 4.5 is outside the Casagrande et al. (2021) relation: the photometry gives
+    no Teff, so no route, and the note says why (the engine decides the same)."""
+    table = pd.DataFrame({"star_id": ["a", "b"], "bp_rp": [4.5, 1.0], "g_mag": [12.0, 12.0],
+                          "parallax_mas": [2.0, 2.0]})
+    assert computable_from(table).tolist() == [ROUTE_NONE, ROUTE_TEFF_L]
+    out = validate_catalog(table)
+    assert out["status"].tolist() == [status.MISSING_INPUTS, status.OK]
+    assert "photometry: no Teff" in out["note"][0]
+
+
 def test_colour_from_two_magnitudes_and_v_band_route():
     table = pd.DataFrame({"star_id": ["a", "b"], "bp_mag": [12.5, np.nan], "rp_mag": [11.4, np.nan],
                           "g_mag": [12.0, np.nan], "distance_pc": [800.0, 500.0],
@@ -252,7 +263,7 @@ def test_colour_from_two_magnitudes_and_v_band_route():
 
 
 def test_cluster_context_from_the_config_enables_the_isochrone_route():
-    table = pd.DataFrame({"star_id": ["a", "b"], "g_mag": [12.0, 13.0]})
+    table = pd.DataFrame({"star_id": ["a", "b"], "g_mag": [12.0, 13.0], "bp_rp": [0.9, 1.1]})
     assert computable_from(table).tolist() == [ROUTE_NONE, ROUTE_NONE]
     context = {"age_gyr": 1.5, "feh": 0.0, "distance_pc": 850.0, "ebv": float("nan")}
     assert computable_from(table, cluster_context=context).tolist() == [ROUTE_CLUSTER] * 2
@@ -276,7 +287,7 @@ def test_check_report_lists_every_problem_row_with_its_row_number():
     assert "row 4  D  [ok] parallax_mas = -0.4 is negative" in report        # note on a computed row
     lines = report.splitlines()
     assert any(line.split()[:2] == ["ok", "2"] for line in lines)
-    assert any(line.split()[:2] == ["mass+stage", "3"] for line in lines)
+    assert any(line.split()[:2] == ["mass+stage", "1"] for line in lines)     # rows computed only
     assert any(line.split()[:2] == ["Teff+logg", "1"] for line in lines)
 
 

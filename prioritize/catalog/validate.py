@@ -3,9 +3,12 @@
 :func:`validate_catalog` never drops a row: it appends ``status`` (a code from
 :mod:`prioritize.catalog.status`) and ``note`` (every problem found, in words,
 ``'; '``-separated, in column order; the first problem's code is the status).
-:func:`computable_from` names the placement route each row allows, in the engine's
-order of preference; :func:`check_report` is the text ``prioritize check`` prints.
-All checks are vectorised over the table.
+:func:`placement_routes` is the one decision of which placement route a row takes; the
+engine (:mod:`prioritize.engine`) and :func:`computable_from` both call it on the
+stellar parameters :func:`~prioritize.stars.photometry.derive_stellar_parameters`
+gives, so ``prioritize check`` and ``prioritize rank`` agree on which stars are
+computable.  :func:`check_report` is the text ``prioritize check`` prints.  All checks
+are vectorised over the table.
 """
 
 from __future__ import annotations
@@ -19,7 +22,7 @@ from prioritize.catalog import status
 from prioritize.catalog.columns import (INPUT_COLUMNS, NUMERIC_INPUT_COLUMNS, ColumnSpec,
                                         row_number_ids)
 from prioritize.errors import CatalogError, ConfigError
-from prioritize.stars.photometry import MAX_PARALLAX_REL_ERR
+from prioritize.stars.photometry import MAX_PARALLAX_REL_ERR, derive_stellar_parameters
 
 ROUTE_MASS_STAGE = "mass+stage"
 ROUTE_CLUSTER = "cluster isochrone"
@@ -30,7 +33,11 @@ ROUTES = (ROUTE_MASS_STAGE, ROUTE_CLUSTER, ROUTE_TEFF_L, ROUTE_TEFF_LOGG, ROUTE_
 """Placement routes in the engine's order of preference."""
 
 CLUSTER_CONTEXT_KEYS = ("age_gyr", "feh", "distance_pc", "ebv")
+CLUSTER_COLUMNS = {"cluster_age_gyr": "age_gyr", "cluster_feh": "feh",
+                   "cluster_distance_pc": "distance_pc", "cluster_ebv": "ebv"}
+MEMBER_INHERITS = (("distance_pc", "cluster_distance_pc"), ("ebv", "cluster_ebv"), ("feh", "cluster_feh"))
 MAX_LISTED_ROWS = 1000          # check_report lists at most this many rows per section
+NOT_COMPUTED = "not computed"   # check_report: rows whose status is not ok
 NEEDS_TEXT = "needs mass+stage, or a colour/Teff with parallax/logL/logg"
 
 # Text that means "no value" in a numeric column (compared lower-case, stripped).
@@ -59,7 +66,10 @@ def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
       missing -> False); other text -> ``invalid_value``;
     - a missing ``star_id`` becomes ``row<N>`` (1-based row); a repeated one ->
       ``duplicate_id`` for the later copies (the first is computed);
-    - a row that allows no placement route (:func:`computable_from`) -> ``missing_inputs``.
+    - a row that allows no placement route (:func:`computable_from`: the inputs, and
+      the Teff and L the photometry can derive from them) -> ``missing_inputs``, with
+      what is missing and why a derivation failed (e.g. a colour outside the range of
+      the colour-Teff relation).
 
     Parameters
     ----------
@@ -125,31 +135,103 @@ def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
             out[name] = _check_limit_flag(out[name], notes)
 
     have = _Available(out, context)
-    nothing = _routes(have) == ROUTE_NONE
+    nothing = placement_routes(have.table, have.params) == ROUTE_NONE
     notes.add(nothing, status.MISSING_INPUTS, _missing_text(have, nothing))
     out["status"] = pd.array(notes.status, dtype="str")
     out["note"] = pd.array(notes.note, dtype="str")
     return out
 
 
-def computable_from(catalog: pd.DataFrame, cluster_context: dict | None = None) -> pd.Series:
-    """The placement route each row allows, in the engine's order of preference.
+def with_cluster_values(catalog: pd.DataFrame, cluster_context: dict | None = None) -> pd.DataFrame:
+    """The catalog with its cluster columns filled from the configured cluster.
+
+    ``cluster_age_gyr``, ``cluster_feh``, ``cluster_distance_pc`` and ``cluster_ebv``
+    take the configured value where the catalog has none; members (a finite cluster
+    age) then inherit the cluster's distance (only without a parallax of their own),
+    reddening and [Fe/H] where they give none.
+
+    Parameters
+    ----------
+    catalog : pandas.DataFrame
+        Canonical columns.
+    cluster_context : dict, optional
+        Keys of :data:`CLUSTER_CONTEXT_KEYS` (NaN or None = not set).
+
+    Returns
+    -------
+    pandas.DataFrame
+        A copy with the four cluster columns and ``distance_pc``, ``ebv``, ``feh``.
+    """
+    context = _cluster_context(cluster_context)
+    df = catalog.copy()
+    for column, key in CLUSTER_COLUMNS.items():
+        value = context[key]
+        df[column] = (pd.to_numeric(df[column], errors="coerce").fillna(value)
+                      if column in df.columns else value)
+    member = np.isfinite(df["cluster_age_gyr"].to_numpy(float))
+    for own, column in MEMBER_INHERITS:
+        if own not in df.columns:
+            df[own] = np.nan
+        fill = member & df[own].isna().to_numpy()
+        if own == "distance_pc" and "parallax_mas" in df.columns:
+            fill &= df["parallax_mas"].isna().to_numpy()
+        df.loc[fill, own] = df.loc[fill, column]
+    return df
+
+
+def placement_routes(table: pd.DataFrame, params: pd.DataFrame) -> np.ndarray:
+    """The placement route of each row: the one rule the engine and ``check`` share.
+
+    In order of preference:
 
     1. ``mass+stage``: ``mass_msun`` and a known ``stage``;
-    2. ``cluster isochrone``: a cluster age (``cluster_age_gyr`` or the configured
-       cluster), a magnitude (``g_mag`` or ``v_mag``) and a distance (``parallax_mas`` > 0,
-       ``distance_pc`` or the cluster distance);
-    3. ``Teff+L``: Teff given or derivable from a colour (``bp_rp``, ``bp_mag`` and
-       ``rp_mag``, or ``b_v``), and ``logl_lsun`` given or derivable from a magnitude and
-       a distance;  ``Teff+logg``: the same Teff and ``logg``;
+    2. ``cluster isochrone``: a cluster age, and the star's Teff and L;
+    3. ``Teff+L``: Teff and L;
+    4. ``Teff+logg``: Teff and the catalog's ``logg``;
+    5. ``nothing``.
 
-    A parallax counts as a distance when it is positive and, if its error is given,
-    error/parallax <= :data:`prioritize.stars.photometry.MAX_PARALLAX_REL_ERR` (the
-    photometry stage rejects less precise ones).
-    4. ``nothing``.
+    Teff and L are those of ``params`` — given in the catalog or derived from its
+    colours, magnitudes and distance — so a colour outside the range of its
+    colour-Teff relation, or a parallax too imprecise for a distance, means no
+    Teff or no L here exactly as in the chain.  Whether the track grid can then
+    explain the star is only known after placement (``out_of_model_range``).
 
-    Values are not range-checked here (see :func:`validate_catalog`); a row can allow a
-    route and still be invalid.
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Canonical columns with the cluster values filled (:func:`with_cluster_values`).
+    params : pandas.DataFrame
+        :func:`~prioritize.stars.photometry.derive_stellar_parameters` of ``table``.
+
+    Returns
+    -------
+    ndarray of str
+        One of :data:`ROUTES` per row.
+    """
+    n = len(table)
+    mass = _numbers(table, "mass_msun")
+    stage = table["stage"].to_numpy(dtype=object) if "stage" in table.columns else np.full(n, None)
+    known_stage = np.array([isinstance(v, str) and v in status.STAGES for v in stage], dtype=bool)
+    teff = np.isfinite(params["teff_k"].to_numpy(float))
+    logl = np.isfinite(params["logl_lsun"].to_numpy(float))
+    logg = np.isfinite(_numbers(table, "logg"))
+    age = np.isfinite(_numbers(table, "cluster_age_gyr"))
+    choice = np.select([np.isfinite(mass) & known_stage, age & teff & logl, teff & logl, teff & logg],
+                       [0, 1, 2, 3], default=4)
+    return np.array(ROUTES, dtype=object)[choice]
+
+
+def computable_from(catalog: pd.DataFrame, cluster_context: dict | None = None) -> pd.Series:
+    """The placement route each row allows, as the engine decides it (:func:`placement_routes`).
+
+    The catalog is completed with the cluster context (:func:`with_cluster_values`),
+    its Teff and L are derived as in the chain
+    (:func:`~prioritize.stars.photometry.derive_stellar_parameters`: a parallax counts
+    as a distance when it is positive and, if its error is given, error/parallax <=
+    :data:`prioritize.stars.photometry.MAX_PARALLAX_REL_ERR`), and the route rule is
+    applied.  Values are not range-checked here (see :func:`validate_catalog`); a row
+    can allow a route and still be invalid.  A computable row can still fail on the
+    tracks: the chain marks a star the grid cannot explain ``out_of_model_range``.
 
     Parameters
     ----------
@@ -168,8 +250,9 @@ def computable_from(catalog: pd.DataFrame, cluster_context: dict | None = None) 
     Bailer-Jones C. A. L. 2015, PASP 127, 994 (1/parallax is a biased distance when the
     fractional parallax error exceeds about 20 per cent).
     """
-    routes = _routes(_Available(catalog, _cluster_context(cluster_context)))
-    return pd.Series(routes, index=catalog.index, name="computable_from", dtype="str")
+    have = _Available(catalog, _cluster_context(cluster_context))
+    return pd.Series(placement_routes(have.table, have.params), index=catalog.index,
+                     name="computable_from", dtype="str")
 
 
 def check_report(validated: pd.DataFrame, cluster_context: dict | None = None) -> str:
@@ -177,7 +260,11 @@ def check_report(validated: pd.DataFrame, cluster_context: dict | None = None) -
 
     Counts per status, every row with a problem (1-based row number, star_id, status,
     note; above :data:`MAX_LISTED_ROWS` rows the rest are counted), rows that will be
-    computed but carry a note, and counts per placement route.
+    computed but carry a note, and the rows that will be computed (status ``ok``) per
+    placement route — the same rows ``prioritize rank`` computes, since both take the
+    route from :func:`placement_routes`.  Only the placement itself can find that the
+    track grid does not explain a star; ``rank`` reports those as
+    ``out_of_model_range``, and the report says so rather than guessing.
 
     Parameters
     ----------
@@ -209,10 +296,13 @@ def check_report(validated: pd.DataFrame, cluster_context: dict | None = None) -
                          f"{MAX_LISTED_ROWS} are listed)")
 
     routes = (validated["computable_from"] if "computable_from" in validated.columns
-              else computable_from(validated, cluster_context)).value_counts()
-    lines += ["", "Can be placed on tracks from:"]
-    lines += [f"  {route.ljust(max(map(len, ROUTES)))}  {int(routes.get(route, 0)):>9d}"
-              for route in ROUTES]
+              else computable_from(validated, cluster_context))[codes == status.OK].value_counts()
+    width = max(map(len, ROUTES + (NOT_COMPUTED,)))
+    lines += ["", f"Rows computed ({int((codes == status.OK).sum())}), by placement route:"]
+    lines += [f"  {route.ljust(width)}  {int(routes.get(route, 0)):>9d}" for route in ROUTES[:-1]]
+    lines += [f"  {NOT_COMPUTED.ljust(width)}  {int((codes != status.OK).sum()):>9d}",
+              "  (placement may still fail for a computed star the track grid cannot explain:",
+              "  rank then gives it status out_of_model_range)"]
     return "\n".join(lines)
 
 
@@ -364,50 +454,50 @@ def _check_limit_flag(column: pd.Series, notes: _Notes) -> pd.Series:
     return pd.Series(np.where(unknown, False, flags).astype(bool), index=column.index)
 
 
+def _numbers(table: pd.DataFrame, name: str) -> np.ndarray:
+    if name not in table.columns:
+        return np.full(len(table), np.nan)
+    return pd.to_numeric(table[name], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+
+
 class _Available:
-    """Which inputs each row has, directly or derivably (boolean arrays)."""
+    """What each row has: the catalog as the chain sees it (``table``: numbers, canonical
+    stages, cluster values filled), its derived stellar parameters (``params``) and
+    boolean arrays of the inputs, for the routes and for saying what is missing."""
 
     def __init__(self, catalog: pd.DataFrame, context: dict):
-        n = len(catalog)
-
-        def number(name: str) -> np.ndarray:
-            if name not in catalog.columns:
-                return np.full(n, np.nan)
-            return pd.to_numeric(catalog[name], errors="coerce").to_numpy(dtype=np.float64,
-                                                                          na_value=np.nan)
+        table = catalog.copy()
+        for name in NUMERIC_INPUT_COLUMNS:
+            if name in table.columns:
+                table[name] = _numbers(table, name)
+        if "stage" in table.columns:
+            codes, uniques = pd.factorize(table["stage"], use_na_sentinel=True)
+            canonical = np.array([normalise_stage(u) for u in uniques] + [None], dtype=object)
+            table["stage"] = canonical[codes]
+        self.table = with_cluster_values(table, context)
+        self.params = derive_stellar_parameters(self.table)
+        n = len(table)
 
         def given(name: str) -> np.ndarray:
-            return np.isfinite(number(name))
-
-        def positive(name: str) -> np.ndarray:
-            with np.errstate(invalid="ignore"):
-                return number(name) > 0
+            return np.isfinite(_numbers(self.table, name))
 
         self.mass = given("mass_msun")
-        if "stage" in catalog.columns:
-            codes, uniques = pd.factorize(catalog["stage"], use_na_sentinel=True)
-            known = np.array([normalise_stage(u) is not None for u in uniques] + [False])
-            self.stage = known[codes]
-        else:
-            self.stage = np.zeros(n, bool)
+        self.stage = (self.table["stage"].notna().to_numpy() if "stage" in self.table.columns
+                      else np.zeros(n, bool))
         colour = given("bp_rp") | (given("bp_mag") & given("rp_mag")) | given("b_v")
-        self.teff = given("teff_k") | colour
+        self.teff_inputs = given("teff_k") | colour
+        self.teff = np.isfinite(self.params["teff_k"].to_numpy(float))
         self.magnitude = given("g_mag") | given("v_mag")
-        parallax, parallax_err = number("parallax_mas"), number("parallax_mas_err")
+        parallax, parallax_err = _numbers(self.table, "parallax_mas"), _numbers(self.table, "parallax_mas_err")
         with np.errstate(invalid="ignore", divide="ignore"):
             self.imprecise_parallax = (parallax > 0) & (parallax_err / parallax > MAX_PARALLAX_REL_ERR)
             usable_parallax = (parallax > 0) & ~self.imprecise_parallax
-        self.distance = (usable_parallax | positive("distance_pc")
-                         | positive("cluster_distance_pc") | (context["distance_pc"] > 0))
-        self.luminosity = given("logl_lsun") | (self.magnitude & self.distance)
+            self.distance = usable_parallax | (_numbers(self.table, "distance_pc") > 0)
+        self.luminosity_inputs = given("logl_lsun") | (self.magnitude & self.distance)
+        self.luminosity = np.isfinite(self.params["logl_lsun"].to_numpy(float))
         self.logg = given("logg")
-        self.cluster_age = given("cluster_age_gyr") | np.isfinite(context["age_gyr"])
-
-
-def _routes(have: _Available) -> np.ndarray:
-    choice = np.select([have.mass & have.stage, have.cluster_age & have.magnitude & have.distance,
-                        have.teff & have.luminosity, have.teff & have.logg], [0, 1, 2, 3], default=4)
-    return np.array(ROUTES, dtype=object)[choice]
+        self.cluster_age = given("cluster_age_gyr")
+        self.why = self.params["deriv_note"].fillna("").to_numpy(dtype=object)
 
 
 _MISSING_DETAILS = np.array([
@@ -421,17 +511,22 @@ _MISSING_DETAILS = np.array([
     "distance, and no Teff or colour)",
     " (a magnitude without parallax or distance, and no Teff or colour)",
     " (cluster age given, but no g_mag or v_mag)",
+    " (a colour and what L needs are given, but the photometry derives no Teff or L from them)",
 ], dtype=object)
 
 
 def _missing_text(have: _Available, rows: np.ndarray) -> np.ndarray:
-    """Why each row in the mask ``rows`` cannot be placed: what it has and what it lacks."""
+    """Why each row in the mask ``rows`` cannot be placed: what it has, what it lacks,
+    and why the photometry could not derive Teff or L (its own words)."""
     detail = np.select(
         [have.mass & ~have.stage,
-         have.teff & ~have.luminosity & ~have.logg,
-         ~have.teff & (have.luminosity | have.logg),
+         have.teff_inputs & ~have.luminosity_inputs & ~have.logg,
+         ~have.teff_inputs & (have.luminosity_inputs | have.logg),
          have.magnitude & ~have.distance & have.imprecise_parallax,
          have.magnitude & ~have.distance,
-         have.cluster_age & ~have.magnitude],
-        [1, 2, 3, 4, 5, 6], default=0)[rows]
-    return f"missing inputs: {NEEDS_TEXT}" + _MISSING_DETAILS[detail]
+         have.cluster_age & ~have.magnitude,
+         have.teff_inputs & (have.luminosity_inputs | have.logg)],
+        [1, 2, 3, 4, 5, 6, 7], default=0)[rows]
+    why = have.why[rows]
+    return (f"missing inputs: {NEEDS_TEXT}" + _MISSING_DETAILS[detail]
+            + np.where(why == "", "", "; photometry: " + why.astype(str)).astype(object))

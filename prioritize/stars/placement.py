@@ -300,10 +300,15 @@ def _mass_stage_samples(placed, w, n_samples, rng, note, stage, nodes, observed,
     stage_index = at(nodes["stage"])
     counts = np.stack([(stage_index == k).sum(axis=1) for k in range(len(evolution.STAGES))], axis=1)
     moved = split_by_l[idx] & (counts.argmax(axis=1) != wanted[idx])
-    for i, k, bump in zip(idx[moved], counts.argmax(axis=1)[moved], np.nanmedian(at(nodes["bump"]), axis=1)[moved]):
+    bumps = at(nodes["bump"])
+    for j in np.flatnonzero(moved):
+        i, k = idx[j], counts[j].argmax()
         side = "above" if evolution.STAGES[k] == "upper_giant_branch" else "below"
-        note[i] = _join(note[i], f"stage given as {stage[i]}, but log L = {logl[i]:.2f} is {side} this "
-                                 f"track's RGB bump (log L {bump:.2f}): placed on {evolution.STAGES[k]}")
+        finite = bumps[j][np.isfinite(bumps[j])]
+        where = (f"this track's RGB bump (log L {np.median(finite):.2f})" if finite.size
+                 else "the middle of this track's giant branch (no RGB bump)")
+        note[i] = _join(note[i], f"stage given as {stage[i]}, but log L = {logl[i]:.2f} is {side} "
+                                 f"{where}: placed on {evolution.STAGES[k]}")
     for name, model, value, sigma in observed:
         median = np.nanmedian(at(model), axis=1)
         distance = np.abs(median - value[idx]) / sigma[idx]
@@ -324,8 +329,9 @@ def _mass_stage_samples(placed, w, n_samples, rng, note, stage, nodes, observed,
 
 def _mass_range_text(current, kept):
     """'current masses 0.84-0.92 Msun' for the mass nodes that were left out."""
-    dropped = current[~kept]
-    return f"current mass {dropped.min():.2f}-{dropped.max():.2f} Msun"
+    low, high = current[~kept].min(), current[~kept].max()
+    return f"current mass {low:.2f} Msun" if f"{low:.2f}" == f"{high:.2f}" else \
+        f"current mass {low:.2f}-{high:.2f} Msun"
 
 
 def _join(a, b):
