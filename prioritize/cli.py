@@ -7,6 +7,8 @@ exit code 2; nothing a user can cause ends in a traceback.
 
 from __future__ import annotations
 
+import functools
+import inspect
 import sys
 from pathlib import Path
 from typing import Optional
@@ -58,6 +60,60 @@ def _planet_masses(text: Optional[str]) -> list[float]:
                               f"got {text!r}") from None
 
 
+# Options that change what the chain computes for a star.  Every command that shows a
+# star's numbers takes all of them (through ``chain_options``), so ``explain`` cannot
+# compute a star differently from ``rank``.
+CHAIN_OPTIONS = {
+    "planet_mass": (Optional[str], typer.Option(
+        None, "--planet-mass", help="Engulfed planet mass in Jupiter masses; several separated by "
+                                    "commas (1,5,10): the first ranks, the others add columns.")),
+    "z_threshold": (Optional[float], typer.Option(
+        None, "--z-threshold", min=0.5, max=20, help="Significance that counts as a signature.")),
+    "seed": (Optional[int], typer.Option(None, "--seed", min=0, help="Random seed.")),
+    "reference": (Optional[Path], typer.Option(
+        None, "--reference", exists=True, dir_okay=False,
+        help="Your own A(Li) table (Teff, logg, [Fe/H], A(Li), upper-limit flag) for the baseline.")),
+    "instrument": (Optional[str], typer.Option(
+        None, "--instrument", help="Instrument preset (echelle-2m, echelle-4m, echelle-8m) or a TOML file.")),
+    "tracks": (Optional[Path], typer.Option(
+        None, "--tracks", exists=True, help="Your own stellar tracks: a track table in our format or "
+                                            "MESA history file(s) (see DEVELOPERS.md).")),
+    "rapid_only": (bool, typer.Option(
+        False, "--rapid-only", help="Keep only rapid or anomalous rotators in the ranking; the rest "
+                                    "are written with status not_anomalous_rotator.")),
+}
+
+
+def chain_overrides(planet_mass=None, z_threshold=None, seed=None, reference=None, instrument=None,
+                    tracks=None, rapid_only=False) -> dict:
+    """The configuration overrides the :data:`CHAIN_OPTIONS` stand for (None = keep the config)."""
+    masses = _planet_masses(planet_mass)
+    return {"planet.mass_mjup": masses[0] if masses else None,
+            "planet.extra_masses_mjup": masses[1:] if masses else None,
+            "rotation.rapid_only": True if rapid_only else None,
+            "run.tracks": str(tracks) if tracks else None,
+            "thresholds.z_signature": z_threshold,
+            "scoring.seed": seed, "observing.instrument": instrument,
+            "baseline.source": "reference" if reference else None,
+            "baseline.reference": str(reference) if reference else None}
+
+
+def chain_options(command):
+    """Give a command every option of :data:`CHAIN_OPTIONS`; it receives them as one
+    ``overrides`` dict (:func:`chain_overrides`)."""
+    signature = inspect.signature(command)
+    own = [p for p in signature.parameters.values() if p.name != "overrides"]
+    added = [inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, default=option, annotation=kind)
+             for name, (kind, option) in CHAIN_OPTIONS.items()]
+
+    @functools.wraps(command)
+    def wrapper(*args, **kwargs):
+        chosen = {name: kwargs.pop(name, None) for name in CHAIN_OPTIONS}
+        return command(*args, overrides=chain_overrides(**chosen), **kwargs)
+    wrapper.__signature__ = signature.replace(parameters=own + added)
+    return wrapper
+
+
 def _cluster_context(cfg) -> dict:
     return {k: getattr(cfg.cluster, k) for k in ("age_gyr", "feh", "distance_pc", "ebv")}
 
@@ -80,6 +136,7 @@ def _progress():
 
 @app.command()
 @friendly
+@chain_options
 def rank(
     catalog: Path = typer.Argument(..., exists=True, dir_okay=False, help="Candidate catalog "
                                    "(CSV, Parquet, FITS, ECSV or VOTable)."),
@@ -88,26 +145,8 @@ def rank(
                                                "(default: <catalog>_ranked.csv here)."),
     config: Optional[Path] = ConfigOpt,
     columns: Optional[list[str]] = ColumnsOpt,
-    planet_mass: Optional[str] = typer.Option(None, "--planet-mass",
-                                              help="Engulfed planet mass in Jupiter masses; several "
-                                                   "separated by commas (1,5,10): the first ranks, "
-                                                   "the others add columns."),
-    z_threshold: Optional[float] = typer.Option(None, "--z-threshold", min=0.5, max=20,
-                                                help="Significance that counts as a signature."),
-    seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed."),
     top: Optional[int] = typer.Option(None, "--top", min=0, help="Rows shown in the terminal."),
-    reference: Optional[Path] = typer.Option(None, "--reference", exists=True, dir_okay=False,
-                                             help="Your own A(Li) table (Teff, logg, [Fe/H], A(Li), "
-                                                  "upper-limit flag) for the baseline."),
-    instrument: Optional[str] = typer.Option(None, "--instrument",
-                                             help="Instrument preset (echelle-2m, echelle-4m, "
-                                                  "echelle-8m) or a TOML file."),
-    tracks: Optional[Path] = typer.Option(None, "--tracks", exists=True,
-                                          help="Your own stellar tracks: a track table in our format "
-                                               "or MESA history file(s) (see DEVELOPERS.md)."),
-    rapid_only: bool = typer.Option(False, "--rapid-only",
-                                    help="Keep only rapid or anomalous rotators in the ranking; the "
-                                         "rest are written with status not_anomalous_rotator."),
+    overrides: Optional[dict] = None,
 ):
     """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
 
@@ -117,16 +156,7 @@ def rank(
     from .engine import rank_table
     from .report.terminal import status_summary, top_table
 
-    masses = _planet_masses(planet_mass)
-    cfg, table, messages = _load(catalog, config, columns, {
-        "planet.mass_mjup": masses[0] if masses else None,
-        "planet.extra_masses_mjup": masses[1:] if masses else None,
-        "rotation.rapid_only": True if rapid_only else None,
-        "run.tracks": str(tracks) if tracks else None,
-        "thresholds.z_signature": z_threshold,
-        "scoring.seed": seed, "run.top": top, "observing.instrument": instrument,
-        "baseline.source": "reference" if reference else None,
-        "baseline.reference": str(reference) if reference else None})
+    cfg, table, messages = _load(catalog, config, columns, {**overrides, "run.top": top})
     for m in messages:
         typer.echo(f"  {m}", err=True)
     ranked = rank_table(table, cfg, progress=_progress())
@@ -140,34 +170,35 @@ def rank(
 
 @app.command()
 @friendly
+@chain_options
 def explain(
     catalog: Path = typer.Argument(..., exists=True, dir_okay=False),
     star_id: str = typer.Argument(..., help="The star's id as in the catalog."),
     config: Optional[Path] = ConfigOpt,
     columns: Optional[list[str]] = ColumnsOpt,
-    planet_mass: Optional[float] = typer.Option(None, "--planet-mass", min=1e-5, max=80,
-                                                help="Engulfed planet mass in Jupiter masses."),
+    overrides: Optional[dict] = None,
 ):
     """Show one star's whole chain with intermediate values and sources.
 
-    Example: prioritize explain candidates.csv "Star 42"
+    The star is computed inside its catalog, with the same options, exactly as
+    ``prioritize rank`` computes it (its batch and that batch's random stream), so
+    every number shown is the one in the ranked table.
+
+    Example: prioritize explain candidates.csv "Star 42" --seed 7
     """
     import numpy as np
 
-    from .engine import run_batch
+    from .engine import rank_row
     from .report.explain import explain_text
 
-    cfg, table, _ = _load(catalog, config, columns, {"planet.mass_mjup": planet_mass})
+    cfg, table, _ = _load(catalog, config, columns, overrides)
     ids = table["star_id"].astype(str)
     hit = np.flatnonzero(ids.to_numpy() == star_id)
     if hit.size == 0:
         near = [s for s in ids if star_id.lower() in s.lower()][:5]
         raise PrioritizeError(f"star '{star_id}' is not in {catalog}"
                               + (f"; did you mean: {', '.join(near)}" if near else ""))
-    one = table.iloc[hit[:1]]
-    from .engine import configured_grid
-    row = run_batch(one, cfg, configured_grid(cfg)).iloc[0]
-    typer.echo(explain_text(one.iloc[0], row, cfg))
+    typer.echo(explain_text(table.iloc[hit[0]], rank_row(table, cfg, int(hit[0])), cfg))
 
 
 @app.command()

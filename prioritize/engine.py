@@ -125,22 +125,12 @@ def with_cluster_context(df: pd.DataFrame, cfg: Config) -> pd.DataFrame:
 
 
 def _routes(df: pd.DataFrame, params: pd.DataFrame) -> np.ndarray:
-    """Placement route per row, named as ``catalog.validate.computable_from`` names them:
-    mass+stage, cluster isochrone, Teff+L, Teff+logg, or '' (cannot place)."""
-    n = len(df)
-    mass = _column(df, "mass_msun")
-    stage = _column(df, "stage", object)
-    has_stage = np.array([isinstance(s, str) and s in st.STAGES for s in stage])
-    teff = params["teff_k"].to_numpy(float)
-    logl = params["logl_lsun"].to_numpy(float)
-    logg = _column(df, "logg")
-    age = _column(df, "cluster_age_gyr")
-    route = np.full(n, "", dtype=object)
-    route[np.isfinite(teff) & np.isfinite(logg)] = "Teff+logg"
-    route[np.isfinite(teff) & np.isfinite(logl)] = "Teff+L"
-    route[np.isfinite(age) & np.isfinite(teff) & np.isfinite(logl)] = "cluster isochrone"
-    route[np.isfinite(mass) & has_stage] = "mass+stage"
-    return route
+    """Placement route per row by the rule ``prioritize check`` also applies
+    (:func:`prioritize.catalog.validate.placement_routes`): mass+stage, cluster
+    isochrone, Teff+L, Teff+logg, or '' (cannot place)."""
+    from .catalog.validate import ROUTE_NONE, placement_routes
+    route = placement_routes(df, params)
+    return np.where(route == ROUTE_NONE, "", route)
 
 
 def _place(df, params, route, grid, cfg, rng):
@@ -901,3 +891,18 @@ def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
             progress(min(start + size, len(df)), len(df))
     out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid, None, reference)
     return score.assign_ranks(out)
+
+
+def rank_row(df: pd.DataFrame, cfg: Config, star_index: int, grid: TrackGrid | None = None) -> pd.Series:
+    """The output row of ``df.iloc[star_index]`` exactly as :func:`rank_table` computes it.
+
+    Runs only the batch that holds the row, with that batch's random stream
+    (``default_rng([seed, batch_number])``), so cluster sequences, reference bins and
+    the placement draws are those of the full ranking; ``rank`` is NaN (the rank
+    number needs the whole catalog)."""
+    size = cfg.run.batch_size
+    number = star_index // size
+    start = number * size
+    out = run_batch(df.iloc[start:start + size], cfg, grid or configured_grid(cfg),
+                    np.random.default_rng([cfg.scoring.seed, number]), load_baseline_reference(cfg))
+    return out.iloc[star_index - start]

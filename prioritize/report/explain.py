@@ -1,24 +1,164 @@
-"""The whole chain for one star, with intermediate values and the source of each step."""
+"""The whole chain for one star, with intermediate values and the source of each step.
+
+The explanation is built from :data:`SECTIONS`: each section is a title and a list of
+:class:`Shown` entries (label, output column, format, unit).  An entry is printed only
+when its column is in the star's output row, so columns the chain adds or drops do not
+break the text; :func:`shown_values` gives the formatted values, one per entry, which
+is what tests compare with the ranked table.
+"""
 
 from __future__ import annotations
 
 import math
+import re
+from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 from .. import CAUTION
 from ..config import Config
 
+_OTHER_PLANET = re.compile(r"^(z_enrich|p_detect|lifetime_myr)_(.+)mj$")  # engine columns per extra planet
+_OTHER_PLANET_LABELS = {"z_enrich": ("z", "{:.2f}", ""), "p_detect": ("P(z >= {thr:g})", "{:.3f}", ""),
+                        "lifetime_myr": ("lifetime", "{:.3g}", "Myr")}
 
-def _v(row, key, fmt="{:.3g}", unit=""):
-    value = row.get(key)
-    if value is None or (isinstance(value, float) and math.isnan(value)):
+
+@dataclass(frozen=True)
+class Shown:
+    """One number (or text) of the explanation: ``label = value unit`` from ``column``."""
+
+    label: str
+    column: str
+    fmt: str = "{:.3g}"
+    unit: str = ""
+
+
+SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
+    ("Stellar parameters  (prioritize.stars.photometry; radius from Stefan-Boltzmann, "
+     "Teff_sun = 5772 K)", (
+        Shown("Teff", "teff_k", "{:.0f}", "K"), Shown("Teff source", "teff_source", "{}"),
+        Shown("log L", "logl_lsun", "{:.3f}"), Shown("log L source", "logl_source", "{}"),
+        Shown("R", "radius_rsun", "{:.3g}", "Rsun"),
+        Shown("[Fe/H]", "feh", "{:+.2f}"), Shown("[Fe/H] source", "feh_source", "{}"))),
+    ("Placement on tracks  (prioritize.stars.placement; Hurley, Pols & Tout 2000 tracks)", (
+        Shown("route", "placement_method", "{}"),
+        Shown("initial mass", "mass_msun", "{:.3f}", "Msun"),
+        Shown("initial mass spread", "mass_err_msun", "{:.3f}", "Msun"),
+        Shown("age", "age_gyr", "{:.3g}", "Gyr"), Shown("age spread", "age_err_gyr", "{:.2f}", "Gyr"),
+        Shown("stage", "stage", "{}"), Shown("EEP", "eep", "{:.1f}"),
+        Shown("best chi^2", "chi2_best", "{:.2f}"))),
+    ("Convective envelope  (the track grid's envelope integration, prioritize.stars.tracks)", (
+        Shown("M_cz", "m_cz_msun", "{:.4g}", "Msun"), Shown("T at its base", "t_bcz_k", "{:.3g}", "K"),
+        Shown("rho at its base", "rho_bcz_gcc", "{:.3g}", "g/cm3"),
+        Shown("r at its base", "r_bcz_rsun", "{:.3g}", "Rsun"),
+        Shown("Li-preserving mass", "m_li_preserved_msun", "{:.3g}", "Msun"),
+        Shown("envelope quality", "envelope_quality", "{}"))),
+    ("Lithium baseline  (prioritize.lithium.baseline, or your reference population)", (
+        Shown("baseline source", "baseline_source", "{}"), Shown("reference stars", "baseline_n", "{:.0f}"),
+        Shown("ZAMS Teff of the track", "teff_zams_k", "{:.0f}", "K"),
+        Shown("main-sequence A(Li)", "a_li_main_sequence", "{:.2f}"),
+        Shown("first-dredge-up dilution", "dilution_dex", "{:+.2f}", "dex"),
+        Shown("A(Li) baseline", "a_li_base", "{:.2f}"), Shown("baseline scatter", "a_li_scatter", "{:.2f}", "dex"),
+        Shown("A(Li) detection limit", "a_li_detection_limit", "{:.2f}"))),
+    ("Measured lithium  (your A(Li) against the baseline)", (
+        Shown("A(Li) measured", "a_li", "{:.2f}"), Shown("A(Li) error", "a_li_err", "{:.2f}", "dex"),
+        Shown("A(Li) is an upper limit", "a_li_is_limit", "{}"),
+        Shown("z observed", "z_observed", "{:+.2f}", "sigma"),
+        Shown("z observed is a limit", "z_observed_is_limit", "{}"),
+        Shown("planet that explains it", "m_planet_needed_mjup", "{:.3g}", "M_J"))),
+    ("Enrichment  (atom counting, prioritize.lithium.enrichment; planet = {cfg.planet.mass_mjup:g} M_J "
+     "{cfg.planet.kind}, X_p = {cfg.planet.hydrogen_fraction:g}, A(Li)_p = {cfg.planet.a_li:g})", (
+        Shown("deposition", "deposition_scenario", "{}"),
+        Shown("M_p", "m_planet_msun", "{:.3e}", "Msun"),
+        Shown("A(Li) after mixing into M_cz", "a_li_enriched", "{:.2f}"),
+        Shown("Delta A(Li)", "delta_a_li", "{:+.3f}", "dex"),
+        Shown("z = Delta A / sigma", "z_enrich", "{:.2f}"), Shown("z spread", "z_enrich_err", "{:.2f}"),
+        Shown("P(z >= {thr:g}) over the placement samples", "p_detect", "{:.3f}"),
+        Shown("smallest planet for z >= {thr:g}", "m_planet_min_mjup", "{:.3g}", "M_J"))),
+    ("Lifetime  (prioritize.lithium.lifetime: the star followed along its track)", (
+        Shown("lifetime", "lifetime_myr", "{:.3g}", "Myr"),
+        Shown("lifetime, 16th percentile sample", "lifetime_p16_myr", "{:.3g}", "Myr"),
+        Shown("lifetime, 84th percentile sample", "lifetime_p84_myr", "{:.3g}", "Myr"),
+        Shown("ended by", "lifetime_end", "{}"),
+        Shown("Li burning time at the envelope base", "li_burning_timescale_myr", "{:.3g}", "Myr"))),
+    ("Rotation  (prioritize.rotation)", (
+        Shown("v_eq = 2 pi R / P", "veq_kms", "{:.2f}", "km/s"),
+        Shown("v_eq expected", "veq_expected_kms", "{:.2f}", "km/s"),
+        Shown("expected spread", "veq_expected_spread_kms", "{:.2f}", "km/s"),
+        Shown("expectation from", "rot_expect_source", "{}"),
+        Shown("anomaly", "rot_anomaly_sigma", "{:+.1f}", "sigma"),
+        Shown("rapid rotator", "rapid_rotator", "{}"),
+        Shown("planet for the spin excess", "m_planet_spin_mjup", "{:.3g}", "M_J"),
+        Shown("spin vs lithium", "spin_li_consistency", "{}"))),
+    ("Observing cost  (prioritize.spectra, prioritize.exposure; Cayrel 1988; airmass "
+     "{cfg.observing.airmass:g}, {cfg.observing.k_sigma:g} sigma)", (
+        Shown("instrument", "instrument", "{}"),
+        Shown("EW(6708) baseline", "ew_base_mA", "{:.1f}", "mA"),
+        Shown("EW(6708) enriched", "ew_enriched_mA", "{:.1f}", "mA"),
+        Shown("Delta EW", "delta_ew_mA", "{:.1f}", "mA"), Shown("line FWHM", "line_fwhm_A", "{:.3f}", "A"),
+        Shown("S/N per pixel needed", "snr_needed", "{:.0f}"), Shown("R_C", "r_c_mag", "{:.2f}", "mag"),
+        Shown("exposure", "exposure_s", "{:.0f}", "s"), Shown("exposure limit", "exposure_flag", "{}"),
+        Shown("S/N reached", "snr_at_exposure", "{:.0f}"), Shown("overhead", "overhead_s", "{:.0f}", "s"),
+        Shown("lines to take", "lines_to_measure", "{}"),
+        Shown("outside coverage", "coverage_missing", "{}"))),
+    ("Priority = expected detections per hour  (prioritize.score; `prioritize rank` orders by it)", (
+        Shown("P(engulfed)", "p_engulfed", "{:.3g}"),
+        Shown("P(z >= {thr:g})", "p_detect", "{:.3f}"),
+        Shown("P(measured)", "p_measured", "{:.3f}"),
+        Shown("time on target", "time_on_target_s", "{:.0f}", "s"),
+        Shown("priority", "priority", "{:.3e}", "per hour"))),
+)
+
+
+def _missing(value) -> bool:
+    if value is None or value is pd.NA:
+        return True
+    if isinstance(value, (float, np.floating)):
+        return math.isnan(value)
+    return isinstance(value, str) and value == ""
+
+
+def format_value(row: pd.Series, shown: Shown) -> str:
+    """``shown``'s value in ``row`` as the explanation prints it ('-' when missing)."""
+    value = row.get(shown.column)
+    if _missing(value):
         return "-"
-    try:
-        text = fmt.format(value)
-    except (ValueError, TypeError):
-        text = str(value)
-    return f"{text} {unit}".rstrip()
+    if isinstance(value, (bool, np.bool_)):
+        text = str(bool(value))
+    else:
+        try:
+            text = shown.fmt.format(value)
+        except (ValueError, TypeError):
+            text = str(value)
+    return f"{text} {shown.unit}".rstrip()
+
+
+def _other_planets(row: pd.Series) -> tuple[Shown, ...]:
+    """Entries for the extra planet masses (``--planet-mass 1,5,10``) present in the row."""
+    entries = []
+    for name in row.index:
+        match = _OTHER_PLANET.match(str(name))
+        if match:
+            label, fmt, unit = _OTHER_PLANET_LABELS[match.group(1)]
+            entries.append(Shown(f"{label} for a {match.group(2)} M_J planet", name, fmt, unit))
+    return tuple(entries)
+
+
+def shown_values(row: pd.Series, cfg: Config) -> list[tuple[str, list[tuple[Shown, str]]]]:
+    """Section titles and the (entry, formatted value) pairs the explanation prints.
+
+    Entries whose column is not in ``row`` are left out; the labels and titles have the
+    configuration's values filled in."""
+    thr = cfg.thresholds.z_signature
+    out = []
+    for title, entries in SECTIONS:
+        if title.startswith("Lifetime"):          # the other planets' z, P and lifetime
+            entries = entries + _other_planets(row)
+        present = [Shown(e.label.format(thr=thr), e.column, e.fmt, e.unit) for e in entries
+                   if e.column in row.index]
+        out.append((title.format(cfg=cfg), [(e, format_value(row, e)) for e in present]))
+    return out
 
 
 def explain_text(inputs: pd.Series, row: pd.Series, cfg: Config) -> str:
@@ -29,69 +169,23 @@ def explain_text(inputs: pd.Series, row: pd.Series, cfg: Config) -> str:
     inputs : Series
         The star's canonical input row (after column mapping and validation).
     row : Series
-        Its output row from the engine.
+        Its output row from the engine, computed as ``prioritize rank`` computes it
+        (:func:`prioritize.engine.rank_row`).
     cfg : Config
         The configuration used.
+
+    Returns
+    -------
+    str
+        Header, inputs, one numbered block per section of :data:`SECTIONS` with
+        ``label = value unit`` lines, and the caution.
     """
-    given = {k: v for k, v in inputs.items()
-             if k not in ("status", "note") and not (isinstance(v, float) and math.isnan(v))
-             and v is not None and v != ""}
-    thr = cfg.thresholds.z_signature
-    planet = cfg.planet
+    given = {k: v for k, v in inputs.items() if k not in ("status", "note") and not _missing(v)}
     lines = [f"Star {row['star_id']}  —  status: {row['status']}"
-             + (f"  ({row['note']})" if row.get("note") else ""), "",
-             "1. Inputs (canonical names): " + ", ".join(f"{k}={v}" for k, v in given.items()), "",
-             "2. Stellar parameters",
-             f"   Teff  = {_v(row, 'teff_k', '{:.0f}', 'K')}   [{row.get('teff_source', '')}]",
-             f"   log L = {_v(row, 'logl_lsun', '{:.3f}')}   [{row.get('logl_source', '')}]",
-             f"   R     = {_v(row, 'radius_rsun', '{:.3g}', 'Rsun')}   (Stefan-Boltzmann, Teff_sun = 5772 K)",
-             f"   [Fe/H] = {_v(row, 'feh', '{:+.2f}')}   [{row.get('feh_source', '')}]", "",
-             f"3. Placement on tracks  [{row.get('placement_method', '')}]  "
-             "(Hurley, Pols & Tout 2000 tracks; Salpeter IMF x time spent as prior)",
-             f"   initial mass = {_v(row, 'mass_msun', '{:.3f}')} ± {_v(row, 'mass_err_msun', '{:.3f}')} Msun,"
-             f" age = {_v(row, 'age_gyr', '{:.3g}')} ± {_v(row, 'age_err_gyr', '{:.2f}')} Gyr",
-             f"   stage = {row.get('stage', '')}, EEP = {_v(row, 'eep', '{:.1f}')},"
-             f" best chi^2 = {_v(row, 'chi2_best', '{:.2f}')}", "",
-             "4. Convective envelope  (track grid; SCIENCE.md §16)",
-             f"   M_cz = {_v(row, 'm_cz_msun', '{:.4g}', 'Msun')}", "",
-             "5. Lithium baseline  [" + str(row.get("baseline_source", "")) + "]  (SCIENCE.md §17)",
-             f"   ZAMS Teff of the track = {_v(row, 'teff_zams_k', '{:.0f}', 'K')}"
-             f" -> main-sequence A(Li) = {_v(row, 'a_li_main_sequence', '{:.2f}')}",
-             f"   first-dredge-up dilution = {_v(row, 'dilution_dex', '{:+.2f}', 'dex')}"
-             f" -> A(Li)_base = {_v(row, 'a_li_base', '{:.2f}')} ± {_v(row, 'a_li_scatter', '{:.2f}')} (scatter)", "",
-             f"6. Enrichment  (atom counting, SCIENCE.md §2): planet = {planet.mass_mjup:g} M_J {planet.kind},"
-             f" X_p = {planet.hydrogen_fraction:g}, A(Li)_p = {planet.a_li:g}",
-             f"   M_p = {_v(row, 'm_planet_msun', '{:.3e}', 'Msun')} mixed into M_cz:"
-             f" A(Li)_new = {_v(row, 'a_li_enriched', '{:.2f}')}, ΔA = {_v(row, 'delta_a_li', '{:+.3f}')} dex",
-             f"   z = ΔA / σ = {_v(row, 'z_enrich', '{:.2f}')} ± {_v(row, 'z_enrich_err', '{:.2f}')}"
-             f"   P(z >= {thr:g}) over the placement samples = {_v(row, 'p_detect', '{:.2f}')}", "",
-             "7. Lifetime  (follow the track: dilution into the deepening envelope, RGB bump, SCIENCE.md §19)",
-             f"   lifetime = {_v(row, 'lifetime_myr', '{:.3g}', 'Myr')}, ended by: {row.get('lifetime_end', '')}", "",
-             f"   smallest planet for z >= {thr:g}: {_v(row, 'm_planet_min_mjup', '{:.3g}', 'M_J')}", "",
-             "8. Rotation  (SCIENCE.md §11)",
-             f"   v_eq = 2πR/P = {_v(row, 'veq_kms', '{:.2f}', 'km/s')}; expected"
-             f" {_v(row, 'veq_expected_kms', '{:.2f}')} ± {_v(row, 'veq_expected_spread_kms', '{:.2f}', 'km/s')}"
-             f" [{row.get('rot_expect_source', '')}]",
-             f"   anomaly = {_v(row, 'rot_anomaly_sigma', '{:+.1f}', 'sigma')}, rapid rotator: {row.get('rapid_rotator', '')},"
-             f" planet for the spin excess = {_v(row, 'm_planet_spin_mjup', '{:.3g}', 'M_J')}"
-             f" ({row.get('spin_li_consistency', '')})",
-             f"   P(engulfed | rotation) = {_v(row, 'p_engulfed_rotation', '{:.3f}')}"
-             f" (prior odds {cfg.rotation.base_odds:g}, raised by the anomaly)", "",
-             f"9. Observing cost on {row.get('instrument', '')}  (SCIENCE.md §7-§9; Cayrel 1988)",
-             f"   EW(6708) = {_v(row, 'ew_base_mA', '{:.1f}')} -> {_v(row, 'ew_enriched_mA', '{:.1f}', 'mA')}"
-             f" (ΔEW = {_v(row, 'delta_ew_mA', '{:.1f}', 'mA')}), line FWHM = {_v(row, 'line_fwhm_A', '{:.3f}', 'A')}",
-             f"   S/N per pixel for {cfg.observing.k_sigma:g} sigma = {_v(row, 'snr_needed', '{:.0f}')};"
-             f" R_C = {_v(row, 'r_c_mag', '{:.2f}')} at airmass {cfg.observing.airmass:g}"
-             f" -> exposure {_v(row, 'exposure_s', '{:.0f}', 's')} [{row.get('exposure_flag', '')}],"
-             f" S/N reached {_v(row, 'snr_at_exposure', '{:.0f}')}, + {_v(row, 'overhead_s', '{:.0f}', 's')} overhead",
-             f"   lines to take: {row.get('lines_to_measure', '')}"
-             + (f"; outside coverage: {row['coverage_missing']}" if row.get("coverage_missing") else ""), "",
-             "10. Priority = expected detections per hour",
-             f"   = P(engulfed | rotation) {_v(row, 'p_engulfed_rotation', '{:.3g}')}"
-             f" x lifetime weight {_v(row, 'lifetime_weight', '{:.3f}')}"
-             f" [t/(t + {cfg.scoring.lifetime_scale_myr:g} Myr), 0 below {cfg.thresholds.min_lifetime_myr:g} Myr]",
-             f"     x P(z >= {thr:g}) {_v(row, 'p_detect', '{:.3f}')} x P(measured) {_v(row, 'p_measured', '{:.3f}')}"
-             f" / {_v(row, 'time_on_target_s', '{:.0f}', 's')} in hours",
-             f"   = {_v(row, 'priority', '{:.3e}')} per hour  (`prioritize rank` orders the list by it)", "",
-             f"Caution: {CAUTION}"]
+             + (f"  ({row['note']})" if not _missing(row.get("note")) else ""), "",
+             "1. Inputs (canonical names): " + ", ".join(f"{k}={v}" for k, v in given.items())]
+    for number, (title, values) in enumerate(shown_values(row, cfg), start=2):
+        lines += ["", f"{number}. {title}"]
+        lines += [f"   {shown.label} = {text}" for shown, text in values]
+    lines += ["", f"Caution: {CAUTION}"]
     return "\n".join(lines)
