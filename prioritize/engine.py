@@ -6,7 +6,7 @@ over batches (bounded memory; a batch's random stream depends only on the seed a
 the batch number, so results do not depend on how batches are scheduled) and sorts
 the result into the ranked list.
 
-Chain per batch (DESIGN.md data flow):
+Chain per batch (one direction; every stage a function of arrays):
 photometry -> placement on tracks (samples) -> envelope -> lithium baseline and
 enrichment per sample -> significance, P(z >= threshold) -> lifetime along the
 track of the median sample -> priority.
@@ -62,7 +62,7 @@ OUTPUT_COLUMNS = [
     "disruption_radius_virial_rsun",
     "a_li_base", "a_li_scatter", "a_li_enriched", "delta_a_li", "z_enrich", "z_enrich_err",
     "p_detect", "lifetime_myr", "lifetime_p16_myr", "lifetime_p84_myr", "lifetime_end",
-    "m_planet_min_mjup", "a_li_detection_limit",
+    "m_planet_min_mjup", "a_li_detection_limit", "li_rich_tail_fraction",
     "z_observed", "z_observed_is_limit", "m_planet_needed_mjup",
     "veq_kms", "veq_expected_kms", "veq_expected_spread_kms", "rot_expect_source",
     "rot_anomaly_sigma", "rapid_rotator", "m_planet_spin_mjup", "spin_li_consistency",
@@ -233,7 +233,7 @@ def _surface_burning_time_yr(grid, mass, z, eep, m_cz):
 
 
 def _deposition(grid, mass, z, eep, cfg):
-    """Where the configured planet dissolves, for every scenario (SCIENCE.md §12).
+    """Where the configured planet dissolves, for every scenario (:mod:`prioritize.lithium.deposition`).
 
     Returns the columns of :func:`deposition.deposition_columns` (shape of ``mass``) and
     the fraction the ranking uses (config ``planet.deposition``); the fraction is 1
@@ -305,6 +305,7 @@ def _lithium_at(grid, mass, z, eep, model, m_mix, m_cz_max, m_pres, gb, cfg, com
              else baseline.prior_scatter(stage_i, teff_zams, feh))
     source = np.full(a_base.shape, PRIOR_SOURCE, dtype=object)
     count = np.zeros(a_base.shape)
+    prior_used = np.ones(a_base.shape, dtype=bool)
     lookup = lookup or {}
     teff_at = np.broadcast_to(lookup.get("teff_k", 10 ** model["logteff"]), a_base.shape)
     logg_at = np.broadcast_to(lookup.get("logg", model["logg"]), a_base.shape)
@@ -317,6 +318,7 @@ def _lithium_at(grid, mass, z, eep, model, m_mix, m_cz_max, m_pres, gb, cfg, com
         sigma = np.where(hit, ref["a_li_scatter"], sigma)
         source = np.where(hit, ref["baseline_source"], "prior (" + ref["baseline_source"].astype(object) + ")")
         count = np.where(hit, ref["baseline_n"], 0)
+        prior_used = ~hit
     sigma = np.maximum(np.hypot(sigma, cfg.baseline.measurement_error_dex), MIN_SCATTER_DEX)
     floor = cfg.observing.ew_floor_mA
     a_limit = (spectra.a_li_for_weak_ew(teff_at, logg_at, feh, floor) if floor > 0
@@ -324,7 +326,11 @@ def _lithium_at(grid, mass, z, eep, model, m_mix, m_cz_max, m_pres, gb, cfg, com
     a_new = enriched_abundance(a_base, m_mix, mjup_to_msun(cfg.planet.mass_mjup) * deposit, composition,
                                li_survival=li_survival)
     a_compared = baseline.censored_baseline(a_base, a_limit)
-    return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": (a_new - a_compared) / sigma,
+    # the prior's Li-rich tail past the bump (internal production); a reference
+    # population brings its own distribution
+    tail = np.where(prior_used, baseline.tail_fraction(stage_i, mass), 0.0)
+    z_sig = baseline.tail_aware_significance(a_new, a_compared, sigma, tail)
+    return {"a_base": a_base, "sigma": sigma, "a_new": a_new, "z": z_sig, "tail": tail,
             "a_limit": a_limit, "a_compared": a_compared, "stage": stage_i,
             "teff_zams": teff_zams, "a_ms": a_ms, "dilution": dilution, "source": source,
             "count": count}
@@ -522,6 +528,7 @@ def _run_batch(df, cfg, grid, rng, reference):
             "teff_zams_k": li["teff_zams"][r, rep], "a_li_main_sequence": li["a_ms"][r, rep],
             "dilution_dex": li["dilution"][r, rep],
             "a_li_detection_limit": li["a_limit"][r, rep],
+            "li_rich_tail_fraction": li["tail"][r, rep],
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
             **{k: env[k] for k in ENVELOPE_OUTPUT_COLUMNS},
@@ -535,7 +542,7 @@ def _run_batch(df, cfg, grid, rng, reference):
     for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
                 "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
                 "p_detect", "lifetime_myr", "lifetime_p16_myr", "lifetime_p84_myr", "teff_zams_k",
-                "a_li_main_sequence", "dilution_dex"):
+                "a_li_main_sequence", "dilution_dex", "li_rich_tail_fraction"):
         out[col] = _scatter(n, idx, res.get(col), float)
     for col in ("stage", "lifetime_end"):
         out[col] = _scatter(n, idx, res.get(col), object)
@@ -553,7 +560,9 @@ def _run_batch(df, cfg, grid, rng, reference):
     compared = np.fmax(out["a_li_base"].to_numpy(float),
                        np.nan_to_num(out["a_li_detection_limit"].to_numpy(float), nan=-np.inf))
     out["m_planet_min_mjup"] = planet_mass_for_abundance(
-        out["a_li_base"], compared + cfg.thresholds.z_signature * out["a_li_scatter"],
+        out["a_li_base"], baseline.abundance_for_significance(
+            cfg.thresholds.z_signature, compared, out["a_li_scatter"].to_numpy(float),
+            np.nan_to_num(out["li_rich_tail_fraction"].to_numpy(float))),
         out["m_cz_msun"], composition) / M_JUP_MSUN
     for col in (*ENVELOPE_OUTPUT_COLUMNS, "li_burning_timescale_myr", *DEPOSITION_COLUMNS,
                 *ODDS_COLUMNS):
@@ -651,7 +660,8 @@ def _measured_lithium_columns(out, df, composition):
     limit = (df["a_li_is_limit"].fillna(False).astype(bool).to_numpy() if "a_li_is_limit" in df
              else np.zeros(len(df), bool))
     base, scatter = out["a_li_base"].to_numpy(float), out["a_li_scatter"].to_numpy(float)
-    out["z_observed"] = (a_obs - base) / np.hypot(scatter, err)
+    tail = np.nan_to_num(out["li_rich_tail_fraction"].to_numpy(float))
+    out["z_observed"] = baseline.tail_aware_significance(a_obs, base, np.hypot(scatter, err), tail)
     out["z_observed_is_limit"] = np.isfinite(a_obs) & limit
     needed = planet_mass_for_abundance(base, a_obs, out["m_cz_msun"].to_numpy(float), composition)
     out["m_planet_needed_mjup"] = np.where(np.isfinite(a_obs) & np.isfinite(base), needed / M_JUP_MSUN,
@@ -761,7 +771,8 @@ class _PerClusterSequence:
 
 
 def _observing_columns(out, df, model_logg, cfg):
-    """Li 6708 line strength, S/N needed, exposure and the lines to take (SCIENCE.md §7-§10, §20)."""
+    """Li 6708 line strength, S/N needed, exposure and the lines to take (:mod:`prioritize.spectra`,
+    :mod:`prioritize.exposure`)."""
     inst = load_instrument(cfg.observing.instrument)
     teff = out["teff_k"].to_numpy(float)
     logg = np.where(np.isfinite(_column(df, "logg")), _column(df, "logg"), model_logg)

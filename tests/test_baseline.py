@@ -100,3 +100,53 @@ def test_no_dilution_before_the_envelope_deepens():
 def test_censored_comparison_uses_the_detection_limit():
     np.testing.assert_array_equal(censored_baseline(np.array([-1.0, 2.0, 0.5]),
                                                     np.array([0.3, 0.3, np.nan])), [0.3, 2.0, 0.5])
+
+
+# --- the clump's Li-rich tail (internal production near the helium flash) ---
+
+def test_without_a_tail_the_significance_is_the_gaussian_one():
+    from prioritize.lithium.baseline import tail_aware_significance
+    a = np.array([-1.0, 0.5, 2.0, 4.0])
+    z = tail_aware_significance(a, 0.0, 0.35, 0.0)
+    assert np.array_equal(z, a / 0.35)
+
+
+def test_tail_significance_is_the_mixture_p_value():
+    """Against a direct evaluation with scipy.stats of the mixture's upper-tail
+    probability: p = (1 - f) Q(z) + f exp(-(a - 1.5) / s)."""
+    from scipy import stats
+    from prioritize.lithium.baseline import (LI_RICH_TAIL_SCALE_DEX, tail_aware_significance)
+    f, base, sigma = 0.01, -0.1, 0.35
+    for a in (0.5, 1.2, 2.0, 2.8, 3.6):
+        p = (1 - f) * stats.norm.sf((a - base) / sigma) + f * np.exp(-max(a - 1.5, 0) / LI_RICH_TAIL_SCALE_DEX)
+        assert tail_aware_significance(a, base, sigma, f) == pytest.approx(stats.norm.isf(p), rel=1e-9)
+
+
+def test_a_jupiter_cannot_stand_out_of_the_clump_tail_but_a_brown_dwarf_can():
+    """With ~1% of normal clump stars Li-rich, an A(Li) below the Li-rich line is at
+    most a 1-in-100 event (z <= 2.33, Q^-1(0.01)); an enrichment far above the tail
+    (A(Li) ~3.3, the meteoritic value) still clears 3 sigma."""
+    from prioritize.lithium.baseline import LI_RICH_TAIL_FRACTION, tail_aware_significance
+    f = LI_RICH_TAIL_FRACTION["red_clump"]
+    assert tail_aware_significance(1.3, -0.1, 0.35, f) <= 2.33 + 1e-6
+    assert tail_aware_significance(3.3, -0.1, 0.35, f) > 3.0
+
+
+def test_tail_only_for_clump_stars_that_went_through_the_helium_flash():
+    from prioritize.catalog.status import STAGES
+    from prioritize.lithium.baseline import tail_fraction
+    idx = np.arange(len(STAGES))
+    low = tail_fraction(idx, 1.2)
+    assert low[STAGES.index("red_clump")] > 0
+    assert np.all(np.delete(low, STAGES.index("red_clump")) == 0)
+    # a 2.5 M_sun clump star ignited helium quietly (secondary clump): no flash tail
+    assert tail_fraction(STAGES.index("red_clump"), 2.5) == 0
+
+
+def test_abundance_for_significance_inverts_the_significance():
+    from prioritize.lithium.baseline import abundance_for_significance, tail_aware_significance
+    for f in (0.0, 0.01):
+        a = abundance_for_significance(3.0, -0.1, 0.35, f)
+        assert tail_aware_significance(a, -0.1, 0.35, f) == pytest.approx(3.0, abs=1e-6)
+    # the tail raises the abundance a 3-sigma signature needs
+    assert abundance_for_significance(3.0, -0.1, 0.35, 0.01) > -0.1 + 3.0 * 0.35 + 1.0

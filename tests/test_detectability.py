@@ -34,9 +34,9 @@ M_G_SUN = 4.67               # solar absolute G: Casagrande & VandenBerg 2018, M
                              # (from memory)
 M_G_SUN_TOL_MAG = 0.03       # BC_G fit (Andrae et al. 2018) vs synthetic solar photometry
 BP_RP_SUN = 0.82             # solar (BP-RP)_0, Casagrande & VandenBerg 2018 (from memory)
-BP_RP_SUN_TOL_MAG = 0.03     # C21 at the solar point gives 5762 K for 0.82 (SCIENCE.md §4)
-A_G_OVER_A_V = 0.81          # SCIENCE.md §6: Babusiaux et al. 2018 at X = 1, A_0 = 0.3
-E_BP_RP_OVER_EBV = 1.40      # SCIENCE.md §6: (A_BP - A_RP)/E(B-V) at X = 1, A_0 = 0.3
+BP_RP_SUN_TOL_MAG = 0.03     # C21 at the solar point gives 5762 K for 0.82 (Casagrande et al. 2021)
+A_G_OVER_A_V = 0.81          # Babusiaux et al. 2018 at X = 1, A_0 = 0.3
+E_BP_RP_OVER_EBV = 1.40      # Babusiaux et al. 2018: (A_BP - A_RP)/E(B-V) at X = 1, A_0 = 0.3
 EXTINCTION_RATIO_TOL = 0.01  # both are two-digit values of the published coefficients
 Z_SUN_FITS = 0.02            # Hurley, Pols & Tout 2000, Sect. 2
 
@@ -84,7 +84,7 @@ def test_favourable_means_z_and_lifetime_above_the_thresholds(grid, cfg, coarse,
 
 
 def test_points_older_than_the_universe_are_marked_not_favourable(grid, cfg):
-    # 0.8 M_sun at the turn-off is ~24 Gyr old in the fits (main-sequence life ~20-25 Gyr, SCIENCE.md §14)
+    # 0.8 M_sun at the turn-off is ~24 Gyr old in the fits (main-sequence life ~20-25 Gyr, from memory)
     table = detectability_map(grid, cfg, 0.0, [0.8], [170.0, 200.0])
     assert (table["age_gyr"] > 13.8).all()
     assert (table["note"] == NOTE_TOO_OLD).all()
@@ -227,3 +227,19 @@ def test_map_command_bad_metallicity_is_one_line(tmp_path):
     result = CliRunner().invoke(_app(), ["map", "--cluster-age", "2", *COARSE_OPTIONS, "-o", str(out)])
     assert result.exit_code == 2 and "--distance" in result.output
     assert len(result.output.strip().splitlines()) == 1
+
+
+def test_subgiants_of_one_and_a_half_solar_masses_are_favourable(grid):
+    """The stated result of the published detectability method this map follows: at
+    solar metallicity, for 1 M_J fully deposited and a
+    reference population whose subgiant bins scatter by ~0.15 dex, some 1.4-1.6 M_sun
+    subgiants below the RGB bump show z >= 5 with a signature lasting more than 1 Myr
+    (the envelope is still thin where it starts: below 0.01 M_sun)."""
+    cfg = with_overrides(Config(), {"baseline.prior_scatter_dex": 0.15, "planet.mass_mjup": 1.0,
+                                    "planet.deposition": "full"})
+    eeps = np.linspace(200.0, 279.0, 30)
+    table = detectability_map(grid, cfg, 0.0, [1.4, 1.5, 1.6], eeps)
+    sub = table[table["stage"] == "subgiant"]
+    strong = sub[(sub["z_enrich"] >= 5.0) & (sub["lifetime_myr"] > 1.0)]
+    assert len(strong) > 0
+    assert strong["m_cz_msun"].min() < 0.01

@@ -144,7 +144,7 @@ def test_extra_planet_masses_measured_lithium_and_rapid_filter():
     ])
     cfg = with_overrides(Config(), {"planet.extra_masses_mjup": [5.0, 10.0], "rotation.rapid_only": True})
     out = run_batch(validate_catalog(rows), cfg).set_index("star_id")
-    # more planet, more lithium: z grows with the planet's mass (SCIENCE.md §2)
+    # more planet, more lithium: z grows with the planet's mass (:mod:`prioritize.lithium.enrichment`)
     for star in ("sg", "rg"):
         z1, z5, z10 = (out.loc[star, c] for c in ("z_enrich", "z_enrich_5mj", "z_enrich_10mj"))
         assert z1 < z5 < z10
@@ -207,7 +207,7 @@ def test_envelope_burning_and_deposition_enter_the_chain():
     full = run_batch(table, Config()).set_index("star_id")
     ram = run_batch(table, with_overrides(Config(), {"planet.deposition": "ram-pressure"})).set_index("star_id")
     g = full.loc["giant"]
-    # lower giant branch: base of the envelope at 2.5-4.5 MK (SCIENCE §16; envelope tests)
+    # lower giant branch: base of the envelope at 2.5-4.5 MK (envelope model, tests/test_envelope.py)
     assert 2.5e6 < g["t_bcz_k"] < 4.5e6 and 0 < g["r_bcz_rsun"] < g["radius_rsun"]
     assert g["li_burning_timescale_myr"] > 0
     assert (full["deposited_fraction_full"] == 1.0).all()
@@ -217,3 +217,27 @@ def test_envelope_burning_and_deposition_enter_the_chain():
         assert ram.loc[star, "z_enrich"] <= full.loc[star, "z_enrich"] + 1e-9
         assert ram.loc[star, "deposition_scenario"] == "ram-pressure"
     assert set(full["lifetime_end"]) <= set(ALL_ENDS)
+
+
+def test_giants_past_the_bump_and_clump_stars_keep_a_finite_priority():
+    """No stage is excluded by construction: an upper-branch giant and a red-clump star
+    (placed by mass + stage) with a 30 M_J companion clear the threshold, get a
+    lifetime > 0 that a named process ends, and a priority > 0.  (A 1 M_J planet in the
+    clump does not clear it: the clump's Li-rich tail, lithium.baseline.)"""
+    rows = pd.DataFrame([{"star_id": s, "mass_msun": m, "mass_msun_err": 0.0, "stage": s,
+                          "teff_k": t, "teff_k_err": 0.0, "feh": 0.0, "feh_err": 0.0, "g_mag": 9.0,
+                          "bp_rp": 1.25}
+                         for s, m, t in [("upper_giant_branch", 1.0, 4300), ("red_clump", 1.0, 4700)]])
+    from prioritize.lithium.lifetime import END_BELOW as END_BELOW_THRESHOLD
+    big = run_batch(validate_catalog(rows), with_overrides(Config(), {"planet.mass_mjup": 30.0}))
+    big = big.set_index("star_id")
+    for star in ("upper_giant_branch", "red_clump"):
+        r = big.loc[star]
+        assert r["stage"] == star
+        assert r["z_enrich"] >= Config().thresholds.z_signature, star
+        assert r["lifetime_myr"] > 0 and r["lifetime_end"] not in ("", END_BELOW_THRESHOLD), star
+        assert r["priority"] > 0, star
+    small = run_batch(validate_catalog(rows), Config()).set_index("star_id")
+    assert small.loc["red_clump", "z_enrich"] < Config().thresholds.z_signature
+    assert small.loc["red_clump", "li_rich_tail_fraction"] > 0
+    assert small.loc["upper_giant_branch", "li_rich_tail_fraction"] == 0

@@ -296,11 +296,15 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("disruption_radius_virial_rsun", FLOAT, "Rsun", "where the envelope reaches the planet's virial temperature"),
     _out("a_li_base", FLOAT, "dex", "expected A(Li) of a normal star like this one (baseline)"),
     _out("a_li_scatter", FLOAT, "dex", "1-sigma star-to-star scatter of the baseline A(Li) (by stage for the prior)"),
+    _out("li_rich_tail_fraction", FLOAT, "", "share of normal stars of the stage in the prior's Li-rich tail above "
+         "A(Li) 1.5 (internal production near the helium flash; lithium.baseline): z_enrich counts core "
+         "and tail together; red-clump stars below 2 M_sun only, 0 elsewhere and for a reference baseline"),
     _out("a_li_detection_limit", FLOAT, "dex", "A(Li) whose 6708 line equals the EW floor: a baseline below it "
          "is a set of upper limits, and z is measured from this limit (censored comparison)"),
     _out("a_li_enriched", FLOAT, "dex", "A(Li) right after the configured planet is mixed in"),
     _out("delta_a_li", FLOAT, "dex", "a_li_enriched - a_li_base"),
-    _out("z_enrich", FLOAT, "sigma", "significance of the enrichment above the baseline scatter"),
+    _out("z_enrich", FLOAT, "sigma", "significance of the enrichment against the baseline: Gaussian-equivalent "
+         "sigma of the chance that a normal star of the stage (scatter and Li-rich tail) shows it"),
     _out("p_detect", FLOAT, "", "probability (0 to 1) that the enrichment exceeds the threshold"),
     _out("lifetime_myr", FLOAT, "Myr", "how long the enrichment stays above the threshold"),
     _out("lifetime_end", TEXT, "", "what ends the signature: dilution, burning, main_sequence_depletion, "

@@ -38,10 +38,16 @@ population facts below (each value cites its source, or says "from memory").
    A&A 467, L15; the size is from memory).  The prior lowers A(Li) linearly in time
    from the bump to the tip by :data:`THERMOHALINE_DEPLETION_DEX`, and red-clump stars
    of tracks with a bump start from the tip value.  Most Li-rich giants are red-clump
-   stars (Kumar et al. 2020, Nat. Astron. 4, 1059): lithium production near the helium
-   flash is a confounder for engulfment in the clump: the prior does not model that
-   tail, so a clump star's enrichment is an engulfment *or* internal production, and
-   the output says so.
+   stars (Kumar et al. 2020, Nat. Astron. 4, 1059; Casey et al. 2019, ApJ 887, 73):
+   lithium production near the helium flash is a confounder for engulfment in the
+   clump.  The prior therefore gives clump stars that went through the flash a
+   **Li-rich tail** (:data:`LI_RICH_TAIL_FRACTION`, :func:`tail_aware_significance`):
+   a share f of normal clump stars lies above A(Li) = 1.5, falling off exponentially
+   (:data:`LI_RICH_TAIL_SCALE_DEX`).  An enriched abundance is then only as
+   significant as the chance that a normal clump star shows it, Gaussian core and
+   tail together: an engulfment of ~1 M_J (A(Li) ~1) cannot stand out of the
+   internally produced Li-rich giants (z <= 2.3), a brown dwarf that lifts A(Li) well
+   above the tail can.
 
 4. **Scatter by stage** (:data:`SCATTER_BY_STAGE_DEX`), wider in the Li dip; 0.3-0.5 dex
    at fixed Teff is the spread seen in clusters and field samples (common practice).
@@ -90,6 +96,22 @@ SCATTER_BY_STAGE_DEX = {"main_sequence": 0.35, "turnoff": 0.35, "subgiant": 0.35
                         "lower_giant_branch": 0.30, "upper_giant_branch": 0.35, "red_clump": 0.35}
 LI_DIP_EXTRA_SCATTER_DEX = 0.4    # added in quadrature at the dip's centre (its floor is ragged)
 LI_RICH_A_LI = 1.5                # the classic Li-rich line for giants (Iben 1967; Brown et al. 1989)
+
+# Li-rich tail of normal red-clump stars, as a share of the clump above A(Li) = 1.5.
+# About 1% of field giants are Li-rich (Brown et al. 1989, ApJS 71, 293; Casey et al.
+# 2019, ApJ 887, 73) and most of them are red-clump stars (Kumar et al. 2020, Nat.
+# Astron. 4, 1059), which points to production near the helium flash; we adopt 1% of
+# clump stars (from memory; the published fractions range ~0.5-2%).  Only clump stars
+# that went through the flash carry it: initial masses below ~2 M_sun at solar
+# metallicity ignite helium degenerately (Girardi 1999, MNRAS 308, 818; the limit is
+# from memory).  Upper-branch giants have no separate tail here: their Li-rich share
+# is small and the prior's 0.35-dex scatter covers the spread.
+LI_RICH_TAIL_FRACTION = {"red_clump": 0.01}
+HELIUM_FLASH_MAX_MASS_MSUN = 2.0
+# The tail falls off as exp(-(A - 1.5) / 0.5 dex): most Li-rich clump giants lie at
+# A(Li) 1.5-2.5 and a few % above the meteoritic 3.3 ("super Li-rich"; Kumar et al.
+# 2011, ApJ 730, L12; from memory).
+LI_RICH_TAIL_SCALE_DEX = 0.5
 
 
 def li_dip_center_k(feh):
@@ -234,3 +256,53 @@ def censored_baseline(a_base, a_detection_limit):
     floor)."""
     lim = np.asarray(a_detection_limit, dtype=float)
     return np.where(np.isfinite(lim), np.fmax(a_base, lim), a_base)
+
+
+def tail_fraction(stage_index, initial_mass_msun):
+    """Share of normal stars of the stage in the Li-rich tail
+    (:data:`LI_RICH_TAIL_FRACTION`): clump stars that went through the helium flash
+    (initial mass below :data:`HELIUM_FLASH_MAX_MASS_MSUN`); 0 elsewhere."""
+    table = np.array([LI_RICH_TAIL_FRACTION.get(s, 0.0) for s in STAGES] + [0.0])
+    idx = np.asarray(stage_index, dtype=int)
+    share = table[np.where(idx >= 0, idx, len(STAGES))]
+    return np.where(np.asarray(initial_mass_msun, dtype=float) < HELIUM_FLASH_MAX_MASS_MSUN, share, 0.0)
+
+
+def _log_tail_sf(a):
+    """log P(A > a) within the Li-rich tail (1 below the Li-rich line)."""
+    return -np.clip(np.asarray(a, dtype=float) - LI_RICH_A_LI, 0.0, None) / LI_RICH_TAIL_SCALE_DEX
+
+
+def tail_aware_significance(a_new, a_compared, sigma, tail):
+    """Significance (Gaussian-equivalent sigma) of ``a_new`` against a normal
+    population that is a Gaussian core (``a_compared``, ``sigma``) plus a Li-rich tail
+    holding a share ``tail`` of the stars:
+
+        p = (1 - f) Q((a - a_c) / sigma) + f exp(-(a - 1.5)_+ / s),   z = Q^-1(p)
+
+    with Q the Gaussian upper tail.  Where f = 0 this is exactly (a - a_c) / sigma.
+    Computed in logarithms so that large z keep their precision."""
+    from scipy.special import log_ndtr, ndtri_exp
+
+    a_new, a_compared, sigma, tail = np.broadcast_arrays(
+        *(np.asarray(v, dtype=float) for v in (a_new, a_compared, sigma, tail)))
+    z = (a_new - a_compared) / sigma
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_p = np.logaddexp(np.log1p(-tail) + log_ndtr(-z),
+                             np.log(tail) + _log_tail_sf(a_new))
+        mixed = -ndtri_exp(np.minimum(log_p, 0.0))
+    return np.where((tail > 0) & np.isfinite(z), mixed, z)
+
+
+def abundance_for_significance(z_target, a_compared, sigma, tail, iterations=60):
+    """The A(Li) whose :func:`tail_aware_significance` equals ``z_target`` (bisection;
+    (a_c + z sigma) where there is no tail, higher where the tail dominates)."""
+    a_compared, sigma, tail = np.broadcast_arrays(
+        *(np.asarray(v, dtype=float) for v in (a_compared, sigma, tail)))
+    lo = a_compared + z_target * sigma
+    hi = np.fmax(lo, LI_RICH_A_LI) + 40.0 * LI_RICH_TAIL_SCALE_DEX
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        below = tail_aware_significance(mid, a_compared, sigma, tail) < z_target
+        lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+    return np.where(tail > 0, 0.5 * (lo + hi), a_compared + z_target * sigma)

@@ -60,7 +60,8 @@ SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
         Shown("main-sequence A(Li)", "a_li_main_sequence", "{:.2f}"),
         Shown("first-dredge-up dilution", "dilution_dex", "{:+.2f}", "dex"),
         Shown("A(Li) baseline", "a_li_base", "{:.2f}"), Shown("baseline scatter", "a_li_scatter", "{:.2f}", "dex"),
-        Shown("A(Li) detection limit", "a_li_detection_limit", "{:.2f}"))),
+        Shown("A(Li) detection limit", "a_li_detection_limit", "{:.2f}"),
+        Shown("share in the Li-rich tail (clump, helium flash)", "li_rich_tail_fraction", "{:.3f}"))),
     ("Measured lithium  (your A(Li) against the baseline)", (
         Shown("A(Li) measured", "a_li", "{:.2f}"), Shown("A(Li) error", "a_li_err", "{:.2f}", "dex"),
         Shown("A(Li) is an upper limit", "a_li_is_limit", "{}"),
@@ -73,7 +74,7 @@ SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
         Shown("M_p", "m_planet_msun", "{:.3e}", "Msun"),
         Shown("A(Li) after mixing into M_cz", "a_li_enriched", "{:.2f}"),
         Shown("Delta A(Li)", "delta_a_li", "{:+.3f}", "dex"),
-        Shown("z = Delta A / sigma", "z_enrich", "{:.2f}"), Shown("z spread", "z_enrich_err", "{:.2f}"),
+        Shown("z against scatter and tail", "z_enrich", "{:.2f}"), Shown("z spread", "z_enrich_err", "{:.2f}"),
         Shown("P(z >= {thr:g}) over the placement samples", "p_detect", "{:.3f}"),
         Shown("smallest planet for z >= {thr:g}", "m_planet_min_mjup", "{:.3g}", "M_J"))),
     ("Lifetime  (prioritize.lithium.lifetime: the star followed along its track)", (
