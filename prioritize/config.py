@@ -25,7 +25,7 @@ def _spec(default, *, lo=None, hi=None, choices=None, doc=""):
 
 @dataclass(frozen=True)
 class PlanetConfig:
-    """The planet assumed to be engulfed (SCIENCE.md §1-2)."""
+    """The planet assumed to be engulfed (composition: Asplund et al. 2009, ARA&A 47, 481; Lodders 2003)."""
 
     kind: str = _spec("gas_giant", choices=("gas_giant", "brown_dwarf", "rocky"),
                       doc="composition class of the engulfed body")
@@ -43,7 +43,8 @@ class PlanetConfig:
     li_mass_fraction: float = _spec(1.5e-6, lo=0.0, hi=1e-3,
                                     doc="Li mass fraction for rocky bodies (CI chondrite ~1.5e-6)")
     deposition: str = _spec("full", choices=("full", "ram-pressure", "virial"),
-                            doc="where the planet's material ends up, for the ranking (SCIENCE.md §12)")
+                            doc="where the planet's material ends up, for the ranking "
+                                "(Jia & Spruit 2018; Siess & Livio 1999)")
 
 
 @dataclass(frozen=True)
@@ -92,7 +93,7 @@ class ClusterConfig:
 
 @dataclass(frozen=True)
 class RotationConfig:
-    """How rotation evidence is judged (SCIENCE.md §11)."""
+    """How rotation evidence is judged (Barnes 2007; Mamajek & Hillenbrand 2008; Carlberg et al. 2011)."""
 
     gyro_relation: str = _spec("barnes2007", choices=("barnes2007", "mh08"),
                                doc="gyrochronology relation for main-sequence dwarfs")
@@ -106,7 +107,7 @@ class RotationConfig:
 
 @dataclass(frozen=True)
 class ObservingConfig:
-    """The instrument and conditions the observing cost is computed for (SCIENCE.md §7-§8)."""
+    """The instrument and conditions the observing cost is computed for (Bessell et al. 1998; Cayrel 1988)."""
 
     instrument: str = _spec("echelle-4m", doc="preset name in configs/instruments/ or a TOML path")
     airmass: float = _spec(1.2, lo=1.0, hi=3.0, doc="airmass assumed for the exposure")

@@ -262,8 +262,9 @@ def detectability_map(grid: TrackGrid, cfg: Config, feh: float = 0.0, masses=Non
 
     References
     ----------
-    Hurley, Pols & Tout 2000, MNRAS 315, 543 (tracks); SCIENCE.md §2 (enrichment by
-    atom counting), §17-§19 (baseline, significance, lifetime).
+    Hurley, Pols & Tout 2000, MNRAS 315, 543 (tracks); enrichment by atom counting
+    (:mod:`prioritize.lithium.enrichment`); baseline, significance and lifetime
+    (:mod:`prioritize.lithium.baseline`, :mod:`prioritize.lithium.lifetime`).
     """
     z = grid_metallicity(grid, feh)
     masses = default_map_masses() if masses is None else masses

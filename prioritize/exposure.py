@@ -41,8 +41,8 @@ if TYPE_CHECKING:
 
 F_LAMBDA_RC_ZERO = 217.7e-11   # erg s^-1 cm^-2 A^-1 at R_C = 0; Bessell, Castelli & Plez 1998, Table A2
 PHOTONS_RC_ZERO_6708 = F_LAMBDA_RC_ZERO / (const.h.cgs.value * const.c.cgs.value / (LI6708_WAVELENGTH_A * 1e-8))
-"""Photons s^-1 cm^-2 A^-1 at 6708 A for R_C = 0 (735; SCIENCE.md §7)."""
-DEFAULT_EXTINCTION_COEFF = 0.07  # mag per airmass near 6700 A at a good site (SCIENCE.md §7)
+"""Photons s^-1 cm^-2 A^-1 at 6708 A for R_C = 0 (735; Bessell, Castelli & Plez 1998, Table A2)."""
+DEFAULT_EXTINCTION_COEFF = 0.07  # mag per airmass near 6700 A at a good site (ESO La Silla; Buton et al. 2013)
 
 # Cousins R from V: V - R_C = 0.508 (B - V) + 0.040, for 0.3 < B - V < 0.9.
 _V_MINUS_RC = (0.040, 0.508)
@@ -200,7 +200,7 @@ def photon_flux_6708(r_c_mag, a_v=0.0, airmass=1.0, extinction_coeff=DEFAULT_EXT
     References
     ----------
     Bessell M. S., Castelli F. & Plez B. 1998, A&A 333, 231, Table A2;
-    Cardelli J. A., Clayton G. C. & Mathis J. S. 1989, ApJ 345, 245; SCIENCE.md §6-7.
+    Cardelli J. A., Clayton G. C. & Mathis J. S. 1989, ApJ 345, 245.
     """
     r_c_mag, a_v, airmass, k = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in
                                                     (r_c_mag, a_v, airmass, extinction_coeff)))
@@ -235,7 +235,8 @@ def signal_rate_per_pixel(r_c_mag, telescope_area, throughput, pixel_width, *, a
 
     References
     ----------
-    SCIENCE.md §7.
+    Bessell, Castelli & Plez 1998, A&A 333, 231 (zero point); the general CCD equation
+    (e.g. Howell S. B., *Handbook of CCD Astronomy*, 2nd ed., ch. 4).
     """
     function = "signal_rate_per_pixel"
     area = _value(telescope_area, u.cm**2, "telescope_area", function)
@@ -273,7 +274,7 @@ def sky_rate_per_pixel(sky_mag_per_arcsec2, aperture_on_sky, telescope_area, thr
 
     References
     ----------
-    Bessell, Castelli & Plez 1998, A&A 333, 231 (zero point); SCIENCE.md §7.
+    Bessell, Castelli & Plez 1998, A&A 333, 231 (zero point).
     """
     omega = _value(aperture_on_sky, u.arcsec**2, "aperture_on_sky", "sky_rate_per_pixel")
     n_pix = np.asarray(n_pix_spatial, dtype=float)
@@ -327,8 +328,8 @@ def snr_for_exposure(exposure_time, r_c_mag, telescope_area, throughput, pixel_w
 
     References
     ----------
-    SCIENCE.md §7 (the general CCD equation, e.g. Howell S. B., *Handbook of CCD
-    Astronomy*, 2nd ed., ch. 4).
+    The general CCD equation (e.g. Howell S. B., *Handbook of CCD Astronomy*, 2nd ed.,
+    ch. 4).
     """
     function = "snr_for_exposure"
     t = _value(exposure_time, u.s, "exposure_time", function)
@@ -364,7 +365,8 @@ def exposure_for_snr(snr, r_c_mag, telescope_area, throughput, pixel_width, *, r
 
     References
     ----------
-    SCIENCE.md §7.
+    The general CCD equation (e.g. Howell S. B., *Handbook of CCD Astronomy*, 2nd ed.,
+    ch. 4), solved exactly for t.
     """
     function = "exposure_for_snr"
     snr = np.asarray(snr, dtype=float)
@@ -440,7 +442,8 @@ def plan_exposure(instrument: Instrument, snr, r_c_mag, *, a_v=0.0, airmass=1.0,
 
     References
     ----------
-    SCIENCE.md §7.
+    Bessell, Castelli & Plez 1998, A&A 333, 231 (zero point); the general CCD equation
+    (e.g. Howell S. B., *Handbook of CCD Astronomy*, 2nd ed., ch. 4).
     """
     area = instrument.collecting_area_cm2
     pixel = instrument.pixel_width_angstrom(LI6708_WAVELENGTH_A)

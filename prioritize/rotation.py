@@ -28,7 +28,10 @@ The chain and the column names it fills (units in the name):
 
 References
 ----------
-SCIENCE.md §11 (formulas and check values).
+Barnes 2007, ApJ 669, 1167; Mamajek & Hillenbrand 2008, ApJ 687, 1264; Carlberg et al.
+2009, ApJ 700, 832 and 2011, ApJ 732, 39; Lau et al. 2025, A&A,
+doi:10.1051/0004-6361/202452081; Sussholz, Mazeh & Faigler 2026, arXiv:2601.20008
+(check values in tests/test_rotation.py).
 """
 
 from __future__ import annotations
@@ -48,14 +51,14 @@ SECONDS_PER_DAY = 86400.0                    # exact, by definition
 R_SUN_KM = R_SUN_CM / 1e5                    # IAU 2015 nominal solar radius
 C_KMS = C_LIGHT_CGS / 1e5                   # speed of light (km/s)
 
-# Dimensionless moment of inertia k² = I/(M R²) [from memory, SCIENCE.md §11; the two
+# Dimensionless moment of inertia k² = I/(M R²) [from memory; the two
 # polytropes are re-derived from the Lane-Emden equation in tests/test_rotation.py].
 K2_SUN = 0.070
 K2_POLYTROPE_N3 = 0.075                      # radiative star (Eddington standard model)
 K2_POLYTROPE_N15 = 0.205                     # fully convective star or envelope
 K2_MAX = 2.0 / 3.0                           # thin spherical shell: the largest possible k²
 
-# Gyrochronology, P = a [(B-V)_0 - c]^b t^n, t in Myr (SCIENCE.md §11 [V]).
+# Gyrochronology, P = a [(B-V)_0 - c]^b t^n, t in Myr (Barnes 2007; Mamajek & Hillenbrand 2008).
 BARNES2007 = {"a": (0.7725, 0.011), "b": (0.601, 0.024), "c": (0.4, 0.0), "n": (0.5189, 0.0070)}
 BARNES2007_BV_RANGE = (0.4, 1.6)
 MH08 = {"a": (0.407, 0.021), "b": (0.325, 0.024), "c": (0.495, 0.010), "n": (0.566, 0.008)}
@@ -130,7 +133,7 @@ def _k2(name, func, values):
     arr = _positive(name, func, values)
     if (np.isfinite(arr) & (arr > K2_MAX)).any():
         raise PrioritizeError(f"{func}: {name} = I/(M R^2) cannot exceed 2/3 (a thin shell); "
-                              "typical values are 0.07-0.2 (SCIENCE.md §11)")
+                              "typical values are 0.07-0.2 (from memory)")
     return arr
 
 
@@ -224,7 +227,7 @@ def vsini_consistency(vsini_kms, vsini_err, radius_rsun, radius_err, prot_d, pro
 
     References
     ----------
-    SCIENCE.md §11; Gray (2005) ch. 18 for v sin i.
+    Gray (2005) ch. 18 for v sin i.
     """
     func = "vsini_consistency"
     if not np.isfinite(n_sigma) or n_sigma <= 0:
@@ -274,7 +277,7 @@ def sin_i_estimate(vsini_kms, radius_rsun, prot_d, vsini_err=None, radius_err=No
 
     References
     ----------
-    Gray (2005) ch. 18; SCIENCE.md §11.
+    Gray (2005) ch. 18.
     """
     func = "sin_i_estimate"
     vsini = _array("vsini_kms", func, vsini_kms)
@@ -331,7 +334,7 @@ def gyro_period_barnes2007(b_v0, age_myr, intrinsic_scatter=GYRO_INTRINSIC_SCATT
 
     References
     ----------
-    Barnes, S. A. 2007, ApJ 669, 1167, eq. 3; SCIENCE.md §11.
+    Barnes, S. A. 2007, ApJ 669, 1167, eq. 3.
     """
     return _gyro_period("gyro_period_barnes2007", BARNES2007, BARNES2007_BV_RANGE, b_v0,
                         age_myr, intrinsic_scatter)
@@ -363,7 +366,7 @@ def gyro_period_mh08(b_v0, age_myr, intrinsic_scatter=GYRO_INTRINSIC_SCATTER):
 
     References
     ----------
-    Mamajek, E. E. & Hillenbrand, L. A. 2008, ApJ 687, 1264; SCIENCE.md §11.
+    Mamajek, E. E. & Hillenbrand, L. A. 2008, ApJ 687, 1264.
     """
     return _gyro_period("gyro_period_mh08", MH08, MH08_BV_RANGE, b_v0, age_myr,
                         intrinsic_scatter)
@@ -578,7 +581,7 @@ def rotation_anomaly_sigma(observed, observed_err, expected, expected_spread,
 
     References
     ----------
-    SCIENCE.md §11 (rotation as an engulfment tracer).
+    Carlberg et al. 2011, ApJ 732, 39 (rotation as an engulfment tracer).
     """
     func = "rotation_anomaly_sigma"
     obs = _array("observed", func, observed)
@@ -646,8 +649,8 @@ def spin_up_velocity_kms(m_planet_mjup, mass_msun, radius_rsun, m_spun_msun, k2,
 
     References
     ----------
-    SCIENCE.md §11 (formula and check values); Carlberg, Majewski & Arras 2009, ApJ
-    700, 832; Lau et al. 2025, A&A, doi:10.1051/0004-6361/202452081.
+    Carlberg, Majewski & Arras 2009, ApJ 700, 832; Lau et al. 2025, A&A,
+    doi:10.1051/0004-6361/202452081 (check values in tests/test_rotation.py).
     """
     func = "spin_up_velocity_kms"
     m_planet = _array("m_planet_mjup", func, m_planet_mjup)
@@ -682,7 +685,7 @@ def planet_mass_for_spin_mjup(delta_veq_kms, mass_msun, radius_rsun, m_spun_msun
 
     References
     ----------
-    SCIENCE.md §11.
+    Carlberg, Majewski & Arras 2009, ApJ 700, 832.
     """
     func = "planet_mass_for_spin_mjup"
     delta = _array("delta_veq_kms", func, delta_veq_kms)
@@ -720,7 +723,8 @@ def spin_lithium_consistency(m_planet_spin, m_planet_min_li, factor=SPIN_LI_AGRE
 
     References
     ----------
-    SCIENCE.md §11 and §18.
+    Carlberg, Majewski & Arras 2009, ApJ 700, 832 (spin); :mod:`prioritize.lithium.enrichment`
+    (minimum planet for a Li signature).
     """
     func = "spin_lithium_consistency"
     if not factor > 1:
@@ -845,8 +849,8 @@ def engulfment_spin_up_kms(planet_mjup, mass_msun, radius_rsun, m_cz_msun, stage
     (k^2 = 0.08) for main-sequence and turnoff dwarfs, whose core and envelope are
     coupled on the braking timescale; the convective envelope (k^2 = 0.2, an n = 1.5
     polytrope) for subgiants and giants, whose envelope holds most of the moment of
-    inertia.  ~1-2 km/s per Jupiter mass for a 1 M_sun, 4 R_sun giant (SCIENCE check
-    rows of Carlberg, Majewski & Arras 2009; Lau et al. 2025)."""
+    inertia.  ~1-2 km/s per Jupiter mass for a 1 M_sun, 4 R_sun giant (check values in
+    tests/test_rotation.py; Carlberg, Majewski & Arras 2009; Lau et al. 2025)."""
     stage = np.asarray(stage, dtype=object)
     mass = np.asarray(mass_msun, dtype=float)
     dwarf = np.isin(stage, GYRO_STAGES)

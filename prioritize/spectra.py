@@ -40,13 +40,13 @@ C_KMS = const.c.to_value(u.km / u.s)    # speed of light (km/s), via astropy
 AMU_G = u.u.to(u.g)                     # atomic mass unit (g), CODATA via astropy
 MASS_LI7_U = 7.016003                   # 7Li atomic mass (u), AME2016 (Wang et al. 2017)
 
-LI6708_WAVELENGTH_A = 6707.8            # gf-weighted centre of the 7Li doublet (air), SCIENCE.md §9
-LI6708_COMPONENTS_A = (6707.761, 6707.912)   # doublet components (air), SCIENCE.md §9
-LI6708_COMPONENT_F = (0.4982, 0.2491)        # oscillator strengths, SCIENCE.md §9
-LI6708_LOG_GF = 0.17                    # total log gf of the doublet, SCIENCE.md §9
-LI6104_WAVELENGTH_A = 6103.6            # Li I 2p-3d subordinate line (air), SCIENCE.md §9
-LI6104_LOG_GF = 0.58                    # total log gf, SCIENCE.md §9
-LI6104_CHI_EV = 1.848                   # lower-level excitation potential (eV), SCIENCE.md §9
+LI6708_WAVELENGTH_A = 6707.8            # gf-weighted centre of the 7Li doublet (air), from the components
+LI6708_COMPONENTS_A = (6707.761, 6707.912)   # doublet components (air), standard atomic data
+LI6708_COMPONENT_F = (0.4982, 0.2491)        # oscillator strengths, standard atomic data
+LI6708_LOG_GF = 0.17                    # total log gf of the doublet: log10 of the summed g f (g = 2)
+LI6104_WAVELENGTH_A = 6103.6            # Li I 2p-3d subordinate line (air), from memory
+LI6104_LOG_GF = 0.58                    # total log gf, from memory
+LI6104_CHI_EV = 1.848                   # lower-level excitation potential (eV), from memory
 
 CAYREL_COEFFICIENT = 1.5                # sigma_EW = 1.5 sqrt(FWHM dx) / (S/N), Cayrel 1988
 DEFAULT_MICROTURBULENCE_KMS = 1.3       # typical of FGK dwarfs (~1.0-1.2) and giants (~1.3-1.5) [M]
@@ -167,7 +167,8 @@ def ew_li6708_mA(teff, logg, feh, a_li):
 
     Accuracy (measured): A(Li) recovered from the grid within 0.09 dex for
     W <= 300 mA (rms 0.02 dex), 0.15 dex to 400 mA, 0.25 dex to 500 mA; the EW table
-    of SCIENCE.md §9 is matched within 0.04 dex.  Outside :func:`ew_model_valid` the
+    in tests/test_spectra.py (``breidablik``, Wang et al. 2021) is matched within 0.04 dex.
+    Outside :func:`ew_model_valid` the
     function extrapolates; callers should flag such rows.
 
     Parameters
@@ -320,8 +321,8 @@ def a_li_error_from_ew_error(sigma_ew_mA, ew_mA, cog_slope=1.0):
 
     References
     ----------
-    SCIENCE.md §8; Gray D. F., *The Observation and Analysis of Stellar Photospheres*,
-    3rd ed., ch. 16.
+    Cayrel R. 1988, IAU Symp. 132, p. 345; Gray D. F., *The Observation and Analysis of
+    Stellar Photospheres*, 3rd ed., ch. 16.
     """
     sigma_ew_mA, ew_mA, cog_slope = _arrays(sigma_ew_mA, ew_mA, cog_slope)
     _require(~(ew_mA <= 0), "a_li_error_from_ew_error: ew_mA must be positive")
@@ -459,7 +460,7 @@ def snr_needed(delta_ew_mA, fwhm_A, pixel_A, k_sigma=3.0, n_obs_difference=False
 
     References
     ----------
-    Cayrel R. 1988, IAU Symp. 132, p. 345; SCIENCE.md §8.
+    Cayrel R. 1988, IAU Symp. 132, p. 345.
     """
     delta_ew_mA, fwhm_A, pixel_A = _arrays(delta_ew_mA, fwhm_A, pixel_A)
     _require(~(delta_ew_mA < 0), "snr_needed: delta_ew_mA must not be negative")
@@ -494,7 +495,8 @@ class DiagnosticLine:
 
 
 _TC = "refractory abundance for the condensation-temperature slope"
-_TC_SOURCE = "SCIENCE.md §10; Melendez et al. 2009 ApJ 704, L66; Spina et al. 2021 Nat. Astron. 5, 1163"
+_TC_SOURCE = ("Melendez et al. 2009 ApJ 704, L66; Spina et al. 2021 Nat. Astron. 5, 1163; "
+              "condensation temperatures from Lodders 2003 ApJ 591, 1220")
 # Refractory lines near Li 6708 (air wavelengths, A): key, wavelength, species.
 _REFRACTORY_LINES = (
     ("fe6703", 6703.57, "Fe I"), ("fe6705", 6705.10, "Fe I"), ("fe6710", 6710.32, "Fe I"),
@@ -505,32 +507,36 @@ _REFRACTORY_LINES = (
 
 DIAGNOSTIC_LINES: tuple[DiagnosticLine, ...] = (
     DiagnosticLine("li6708", "Li I 6707.8", 6707.8, "Li I",
-                   "lithium abundance: the engulfment signature", "SCIENCE.md §9"),
+                   "lithium abundance: the engulfment signature",
+                   "Wang et al. 2021 MNRAS 500, 2159 (3D non-LTE)"),
     DiagnosticLine("li6104", "Li I 6103.6", 6103.6, "Li I",
-                   "lithium abundance from an unsaturated line when Li is high", "SCIENCE.md §9"),
+                   "lithium abundance from an unsaturated line when Li is high",
+                   "Wang et al. 2021 MNRAS 500, 2159 (3D non-LTE); line data from memory"),
     DiagnosticLine("li6_li7", "6Li/7Li (6708 profile)", 6708.0, "Li I",
                    "6Li survives only briefly: any 6Li points to fresh accretion",
-                   "SCIENCE.md §10; Israelian et al. 2001 Nature 411, 163",
+                   "Israelian et al. 2001 Nature 411, 163",
                    min_snr=400.0, min_resolving_power=100000.0),
     DiagnosticLine("vsini", "v sin i (line widths)", 6708.0, "many",
-                   "rotation: spin-up by the engulfed planet's angular momentum", "SCIENCE.md §10-11",
+                   "rotation: spin-up by the engulfed planet's angular momentum",
+                   "Carlberg et al. 2009 ApJ 700, 832; Carlberg et al. 2011 ApJ 732, 39",
                    min_snr=30.0, min_resolving_power=20000.0),
     DiagnosticLine("c13n8004", "13CN 8004.7", 8004.7, "13CN",
                    "12C/13C: a normal ratio with high Li favours engulfment over internal Li production",
-                   "SCIENCE.md §10", giants_only=True, min_snr=100.0, min_resolving_power=40000.0),
+                   "from memory", giants_only=True, min_snr=100.0, min_resolving_power=40000.0),
     DiagnosticLine("cn8000", "CN 7995-8010", 8000.0, "12CN",
-                   "[C/N] after first dredge-up (mass and mixing)", "SCIENCE.md §10",
+                   "[C/N] after first dredge-up (mass and mixing)", "from memory",
                    giants_only=True, min_snr=80.0, min_resolving_power=20000.0),
-    DiagnosticLine("c2_5135", "C2 5135", 5135.0, "C2", "carbon abundance for [C/N]", "SCIENCE.md §10",
+    DiagnosticLine("c2_5135", "C2 5135", 5135.0, "C2", "carbon abundance for [C/N]", "from memory",
                    giants_only=True, min_snr=60.0, min_resolving_power=20000.0),
-    DiagnosticLine("c2_5635", "C2 5635", 5635.0, "C2", "carbon abundance for [C/N]", "SCIENCE.md §10",
+    DiagnosticLine("c2_5635", "C2 5635", 5635.0, "C2", "carbon abundance for [C/N]", "from memory",
                    giants_only=True, min_snr=60.0, min_resolving_power=20000.0),
     DiagnosticLine("oi6300", "[O I] 6300.3", 6300.3, "[O I]",
-                   "oxygen, needed to turn CN and C2 strengths into C and N", "SCIENCE.md §10",
+                   "oxygen, needed to turn CN and C2 strengths into C and N", "from memory",
                    giants_only=True, min_snr=100.0, min_resolving_power=40000.0),
     DiagnosticLine("be3130", "Be II 3130.4", 3130.42, "Be II",
                    "beryllium burns at 3.5 MK: Be with Li separates accretion from production",
-                   "SCIENCE.md §10; the blue flux of F-K stars is far below that at 6708 A, hence "
+                   "Asplund et al. 2009 ARA&A 47, 481 (A(Be)); burning temperature from memory; "
+                   "the blue flux of F-K stars is far below that at 6708 A, hence "
                    "the high S/N asked at 6708 A", min_snr=300.0, min_resolving_power=30000.0),
 ) + tuple(
     DiagnosticLine(key, f"{species} {wavelength:.1f}", wavelength, species, _TC, _TC_SOURCE,
@@ -584,7 +590,8 @@ def lines_to_measure(teff, logg, a_li_enriched, snr_planned, instrument: Instrum
 
     References
     ----------
-    SCIENCE.md §8-§10; Cayrel R. 1988, IAU Symp. 132, p. 345.
+    Cayrel R. 1988, IAU Symp. 132, p. 345; Wang et al. 2021, MNRAS 500, 2159; each line's
+    own source in :data:`DIAGNOSTIC_LINES`.
     """
     teff, logg, a_li, snr, feh, vsini = _arrays(teff, logg, a_li_enriched, snr_planned, feh, vsini_kms)
     teff, logg, a_li, snr, feh, vsini = (np.atleast_1d(v) for v in (teff, logg, a_li, snr, feh, vsini))

@@ -1,4 +1,4 @@
-"""Lithium burning against SCIENCE.md §13, pynucastro's REACLIB rate and screening, and
+"""Lithium burning against the Caughlan & Fowler (1988) rate, pynucastro's REACLIB rate and screening, and
 direct numerical solutions."""
 
 import inspect
@@ -15,7 +15,8 @@ from prioritize.constants import G_CGS, K_B_CGS, M_H_CGS, M_SUN_G, R_SUN_CM, SEC
 from prioritize.errors import ModelRangeError
 from prioritize.lithium import burning as b
 
-# SCIENCE.md §13 table [C there from the CF88 formula, X = 0.7, no screening], quoted to
+# Table computed from the CF88 formula (Caughlan & Fowler 1988, ADNDT 40, 283; X = 0.7, no
+# screening), quoted to
 # two significant figures: the rounding is at most 2.5%, hence 3%.
 TABLE_REL_TOL = 0.03
 TABLE_T_MK = np.array([2.0, 2.5, 3.0, 3.5, 4.0])
@@ -69,7 +70,7 @@ def reaclib_li7_pa():
 
 
 def test_rate_matches_science_table():
-    """N_A<sigma v> and tau at rho = 1 and 0.1 against SCIENCE.md §13 (CF88, no screening)."""
+    """N_A<sigma v> and tau at rho = 1 and 0.1 against the table computed from CF88 (no screening)."""
     np.testing.assert_allclose(b.rate_cf88(TABLE_T_MK * 1e-3), TABLE_RATE, rtol=TABLE_REL_TOL)
     for rho, table in ((1.0, TABLE_TAU_RHO1_YR), (0.1, TABLE_TAU_RHO01_YR)):
         tau = b.li_destruction_timescale_yr(TABLE_T_MK * 1e6, rho, 0.7, screening=False)
@@ -93,7 +94,7 @@ def test_salpeter_coefficient():
 
 
 @pytest.mark.parametrize("t_k,rho,x,y", [
-    (2.2e6, 0.19, 0.74, 0.246),     # present Sun's convective base (SCIENCE.md §16)
+    (2.2e6, 0.19, 0.74, 0.246),     # present Sun's convective base (helioseismic, from memory)
     (3.0e6, 1.0, 0.70, 0.28),       # a K dwarf's base
     (2.5e6, 0.02, 0.70, 0.28),      # a giant's base
 ])
@@ -146,7 +147,7 @@ def test_hot_layer_mass_against_direct_integration():
 def test_surface_timescales_sun_and_k_dwarf():
     """Orders of magnitude: standard physics leaves the present Sun's lithium almost
     unburnt (tau >> its 4.6 Gyr age, the known shortfall of standard models), while a K
-    dwarf whose base is at 3.3 MK burns it in 10-100 Myr (SCIENCE.md §19)."""
+    dwarf whose base is at 3.3 MK burns it in 10-100 Myr (Caughlan & Fowler 1988 rate)."""
     tau_sun = b.surface_li_timescale_yr(2.2e6, 0.19, 0.713, 0.025, 1.0)
     assert tau_sun > 100 * 4.6e9
     tau_k = b.surface_li_timescale_yr(3.3e6, 1.5, 0.45, 0.05, 0.7)

@@ -2,7 +2,7 @@
 
 Physical anchors (values real stars have, which the allowed ranges must accept):
 the Sun (IAU 2015 nominal values in ``prioritize.constants``), Proxima Centauri's
-parallax, Sirius' V magnitude and the meteoritic lithium abundance (SCIENCE.md §1).
+parallax, Sirius' V magnitude and the meteoritic lithium abundance (Asplund et al. 2009, ARA&A 47, 481).
 """
 
 from __future__ import annotations

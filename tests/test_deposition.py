@@ -1,4 +1,4 @@
-"""Planet deposition against SCIENCE.md §12 worked numbers, planet data, analytic profiles
+"""Planet deposition against worked Jupiter numbers, planet data, analytic profiles
 and a direct hydrostatic integration."""
 
 import numpy as np
@@ -9,7 +9,8 @@ from prioritize.constants import G_CGS, K_B_CGS, M_H_CGS, M_SUN_G, R_EARTH_CM, R
 from prioritize.errors import ConfigError, ModelRangeError, PrioritizeError
 from prioritize.lithium import deposition as dep
 
-# SCIENCE.md §12 Jupiter numbers [C there], quoted to two significant figures: half a unit
+# Jupiter numbers computed from the Jia & Spruit (2018) and Siess & Livio (1999) criteria,
+# quoted to two significant figures: half a unit
 # of the second figure relative to the value.
 JUPITER_PRESSURE = 4.8e13            # rho_p v_esc^2, erg cm^-3
 JUPITER_GM2_R4 = 1.0e14              # G M^2 / R^4, erg cm^-3
@@ -20,7 +21,7 @@ THRESHOLDS = [(437.0, 0.025), (218.0, 0.1)]   # (v km/s, rho_* g cm^-3)
 THRESHOLD_REL_TOL = 0.021            # 0.0005 / 0.025 rounding of "0.025"
 T_VIR = [(0.6, 1.3e5), (1.3, 2.9e5)]          # (mu, K)
 T_VIR_ABS_TOL_K = 0.05e5
-# Jupiter's mean density 1.326 g cm^-3 (SCIENCE.md §12 [M]), quoted to 3 decimals.
+# Jupiter's mean density 1.326 g cm^-3 (from memory), quoted to 3 decimals.
 JUPITER_DENSITY, DENSITY_ABS_TOL = 1.326, 0.001
 # Rocky radii (from memory): Earth 1 M_earth, 6371 km; Venus 0.815 M_earth, 6051.8 km.
 # Zeng et al. (2016) fit these to ~1% with CMF 0.26-0.33; Mars (0.107 M_earth,
@@ -54,7 +55,7 @@ def _power_law_profiles(exponents, r_true, mass_msun, pressure, b=0.0, k=12, see
 
 
 def test_jupiter_worked_numbers():
-    """SCIENCE.md §12: rho v_esc^2 = 4.8e13, G M^2/R^4 = 1.0e14, v_orb = 437 km/s and the
+    """Jia & Spruit 2018, Jupiter: rho v_esc^2 = 4.8e13, G M^2/R^4 = 1.0e14, v_orb = 437 km/s and the
     densities that disrupt Jupiter at 437 and 218 km/s."""
     mass, radius = _jupiter()
     pressure = dep.disruption_pressure(mass, radius)
@@ -113,7 +114,7 @@ def test_virial_radius_on_power_law_profile():
 
 
 def _thin_solar_envelope(k=16):
-    """SCIENCE.md §16 thin adiabatic envelope of the Sun: T = (2/5)(mu m_H G M/k)(1/r - 1/R),
+    """Thin adiabatic envelope of the Sun (Kippenhahn et al. 2012, §10.3): T = (2/5)(mu m_H G M/k)(1/r - 1/R),
     mu = 0.6, rho ~ T^1.5 normalised to 0.187 g cm^-3 at r_bcz = 0.713 R_sun."""
     r = np.linspace(0.999, 0.713, k)
     t = 0.4 * 0.6 * M_H_CGS * G_CGS * M_SUN_G / K_B_CGS * (1 / r - 1) / R_SUN_CM

@@ -1,4 +1,4 @@
-"""Enrichment by atom counting against the check table of SCIENCE.md §2."""
+"""Enrichment by atom counting against a check table computed from the same formula."""
 
 import numpy as np
 import pytest
@@ -7,8 +7,8 @@ from prioritize.constants import M_EARTH_MSUN, M_JUP_MSUN
 from prioritize.lithium.enrichment import (PlanetComposition, enriched_abundance,
                                            planet_mass_for_abundance)
 
-# SCIENCE.md §2 check table [computed there from the same formula with X_* = X_p = 0.70,
-# A_p = 3.26, w_Li = 1.5 ppm]; values are quoted to 0.001 dex, so the tolerance is the
+# Check table computed from the atom-counting formula with X_* = X_p = 0.70,
+# A_p = 3.26, w_Li = 1.5 ppm; values are quoted to 0.001 dex, so the tolerance is the
 # rounding plus the stated 0.002 dex of the task.
 ABUNDANCE_TOL_DEX = 0.002
 GAS = PlanetComposition("gas_giant", 0.70, 3.26)

@@ -17,7 +17,7 @@ from prioritize.errors import ModelRangeError
 from prioritize.stars import envelope, eos, opacity
 
 # Helioseismic base of the solar convection zone: r = 0.713 R_sun (Christensen-Dalsgaard,
-# Gough & Thompson 1991, ApJ 378, 413; SCIENCE.md §16); T ~ 2.2 MK and rho ~ 0.19 g cm^-3
+# Gough & Thompson 1991, ApJ 378, 413); T ~ 2.2 MK and rho ~ 0.19 g cm^-3
 # (Christensen-Dalsgaard et al. 1996, Science 272, 1286, model S; Basu & Antia 2008, Phys.
 # Rep. 457, 217) -- the T and rho values are from memory.
 SUN_R_BCZ_RSUN = 0.713
@@ -26,17 +26,17 @@ SUN_RHO_BCZ_GCC = 0.19
 R_BCZ_TOL_RSUN = 0.002          # calibration target, met by construction (root-finding tolerance)
 T_BCZ_REL_TOL = 0.05            # 5 %: simplified EOS (Saha, no pressure ionisation) and grey atmosphere
 RHO_BCZ_REL_TOL = 0.15          # 15 %: rho_bcz follows the adiabat's entropy, set by alpha and the surface
-SUN_M_CZ_RANGE_MSUN = (0.02, 0.03)  # SCIENCE.md §14 (from memory) and solar models' 0.024-0.027
-THIN_ENVELOPE_REL_TOL = 0.05    # SCIENCE.md §16: adiabatic thin-envelope formula vs integrator
-SCIENCE_THIN_T_BCZ_K = 2.23e6   # SCIENCE.md §16 [C]: the formula with mu = 0.6 at r = 0.713 R_sun
+SUN_M_CZ_RANGE_MSUN = (0.02, 0.03)  # from memory, and solar models' 0.024-0.027
+THIN_ENVELOPE_REL_TOL = 0.05    # adiabatic thin-envelope formula (KWW 2012, §10.3) vs integrator
+SCIENCE_THIN_T_BCZ_K = 2.23e6   # computed from the formula with mu = 0.6 at r = 0.713 R_sun
 SCIENCE_THIN_REL_TOL = 0.005    # rounding of the quoted 2.23 MK
-HOT_STAR_M_CZ_MAX_MSUN = 1e-5   # SCIENCE.md §14: F/A main-sequence envelopes are tiny (from memory)
-GIANT_M_CZ_FRACTION = (0.65, 0.90)  # SCIENCE.md §16 [C]: M_cz/M 0.70-0.84 on the lower giant branch
-GIANT_M_CZ_REL_TOL = 0.10       # SCIENCE.md §16: within a few % of M - M_core; 10 % allowed here
+HOT_STAR_M_CZ_MAX_MSUN = 1e-5   # F/A main-sequence envelopes are tiny (from memory)
+GIANT_M_CZ_FRACTION = (0.65, 0.90)  # M_cz/M 0.70-0.84 on the lower giant branch (this model, OPAL)
+GIANT_M_CZ_REL_TOL = 0.10       # within a few % of M - M_core (same computation); 10 % allowed here
 GIANT_T_BCZ_RANGE_K = (2.5e6, 4.5e6)  # "below ~4 MK" (from memory), +~10 % for the round number
 NABLA_AD_IDEAL = 0.4            # monatomic ideal gas, KWW §14 (textbook)
 NABLA_AD_IDEAL_TOL = 0.005      # residual ionisation and radiation pressure at the chosen points
-NABLA_AD_DIP_RANGE = (0.1, 0.2)  # SCIENCE.md §16 [C]: ~0.2 in the H ionisation zone; KWW fig. 14.x
+NABLA_AD_DIP_RANGE = (0.1, 0.2)  # ~0.2 in the H ionisation zone (computed from the Saha EOS); KWW fig. 14.x
 PURE_HYDROGEN_NABLA_TOL = 2e-4  # finite-difference step 1e-4 of the numerical derivative
 TABLE_NABLA_TOL = 0.005         # bilinear table (0.01 dex in T) vs direct derivative
 SAHA_REL_TOL = 1e-8             # Newton iteration converged to 1e-13
@@ -63,7 +63,7 @@ def test_sun_matches_helioseismology(x, z):
 
 
 def test_thin_envelope_formula(solar_alpha):
-    """SCIENCE.md §16: T(r) = (2/5)(mu m_H G M/k)(1/r - 1/R) with mu = 0.6."""
+    """Kippenhahn, Weigert & Weiss 2012, §10.3: T(r) = (2/5)(mu m_H G M/k)(1/r - 1/R) with mu = 0.6."""
     at_science_radius = envelope.thin_envelope_temperature(SUN_R_BCZ_RSUN, 1.0, 1.0, mu=0.6)
     assert abs(at_science_radius / SCIENCE_THIN_T_BCZ_K - 1.0) < SCIENCE_THIN_REL_TOL
     sun = envelope.integrate_envelope(1.0, 1.0, 0.0, Z_SUN_TRACKS, solar_alpha)
@@ -95,7 +95,7 @@ def test_late_main_sequence_sun_is_deeper(solar_alpha):
 
 
 def test_lower_giant_branch_envelope_meets_the_core():
-    """1.2 M_sun, R = 6 R_sun, L = 16 L_sun, M_core = 0.2 M_sun (SCIENCE.md §16)."""
+    """1.2 M_sun, R = 6 R_sun, L = 16 L_sun, M_core = 0.2 M_sun (a lower-giant-branch point)."""
     mass, core = 1.2, 0.2
     giant = envelope.solve_alpha_to_core(mass, 6.0, np.log10(16.0), Z_SUN_TRACKS, core)
     assert giant.quality == envelope.QUALITY_ALPHA_SOLVED
@@ -110,7 +110,7 @@ def test_lower_giant_branch_envelope_meets_the_core():
 
 
 def test_solar_alpha_runs_out_of_mass_above_a_giant_core(solar_alpha):
-    """SCIENCE.md §16 [C]: with the solar alpha the giant's envelope cannot meet the core."""
+    """Computed with this envelope model: with the solar alpha the giant's envelope cannot meet the core."""
     giant = envelope.integrate_envelope(1.2, 6.0, np.log10(16.0), Z_SUN_TRACKS, solar_alpha, core_mass_msun=0.2)
     assert giant.quality in (envelope.QUALITY_HIT_CORE, envelope.QUALITY_CORE_MISMATCH)
     assert np.exp(giant.core_mismatch) * envelope.DEFAULT_CORE_RADIUS_RSUN > envelope.CORE_RADIUS_WINDOW_RSUN[1]
@@ -140,7 +140,7 @@ def test_saha_ionisation_of_pure_hydrogen():
 
 
 def test_nabla_ad_of_solar_gas():
-    """SCIENCE.md §16: ~0.40 neutral and fully ionised; dips to ~0.1-0.2 where H ionises."""
+    """Textbook (KWW 2012, ch. 14): ~0.40 neutral and fully ionised; dips to ~0.1-0.2 where H ionises."""
     neutral = eos.adiabatic_gradient(5000.0, 1e5, 0.70, 0.02)
     ionised = eos.adiabatic_gradient(2.0e6, 6e13, 0.70, 0.02)   # solar convective base
     assert abs(neutral - NABLA_AD_IDEAL) < NABLA_AD_IDEAL_TOL

@@ -1,10 +1,10 @@
 """Checks of prioritize.exposure and prioritize.instruments.
 
 References used below:
-- SCIENCE.md §7: Bessell, Castelli & Plez (1998) zero point (735 photons s^-1 cm^-2 A^-1
+- Bessell, Castelli & Plez (1998, A&A 333, 231, Table A2) zero point (735 photons s^-1 cm^-2 A^-1
   at 6708 A for R_C = 0) and the worked, photon-limited example (S/N ~ 158).
 - The ``extinction`` library (PyPI) for the CCM89 A(6708)/A_V.
-- SCIENCE.md §4 and §6: a solar twin has BP-RP = 0.82 (5762 K, Casagrande et al. 2021)
+- A solar twin has BP-RP = 0.82 (5762 K, Casagrande et al. 2021)
   and B-V = 0.653 (5741 K, Casagrande et al. 2010); V from G by Riello et al. (2021).
 """
 
@@ -23,9 +23,9 @@ from prioritize.errors import ConfigError, PrioritizeError, PrioritizeWarning
 from prioritize.instruments import (PRESET_DIRECTORY, Instrument, instrument_from_dict,
                                     list_instruments, load_instrument)
 
-WORKED_EXAMPLE_REL_TOL = 0.02   # SCIENCE.md §7 quotes the example to 2-3 digits
-ZERO_POINT_REL_TOL = 0.005      # SCIENCE.md §7 table: 735 to three digits
-CCM89_ABS_TOL = 0.002           # A(6708)/A_V to the third decimal of SCIENCE.md §6
+WORKED_EXAMPLE_REL_TOL = 0.02   # the worked example is quoted to 2-3 digits
+ZERO_POINT_REL_TOL = 0.005      # Bessell, Castelli & Plez (1998) zero point: 735 to three digits
+CCM89_ABS_TOL = 0.002           # CCM89 A(6708)/A_V = 0.795 to the third decimal
 COLOUR_TOL_MAG = 0.03           # scatter of the Riello et al. 2021 relations (~0.03 mag)
 INVERSE_REL_TOL = 1e-10         # exact quadratic root: round-off only
 
@@ -107,7 +107,7 @@ def test_wrong_units_and_values_raise_package_errors():
 def test_r_c_from_v_and_from_gaia_agree_for_a_solar_twin():
     g = 10.0
     bp_rp = 0.82
-    v = g + 0.02704 - 0.01424 * bp_rp + 0.2156 * bp_rp**2 - 0.01426 * bp_rp**3   # SCIENCE.md §6
+    v = g + 0.02704 - 0.01424 * bp_rp + 0.2156 * bp_rp**2 - 0.01426 * bp_rp**3   # Riello et al. 2021
     from_gaia = exposure.r_c_from_gaia(g, bp_rp)
     from_v = exposure.r_c_from_v(v, 0.653)
     assert float(from_v) == pytest.approx(float(from_gaia), abs=COLOUR_TOL_MAG)

@@ -1,25 +1,26 @@
-"""The convective envelope carried by the shipped track grid (SCIENCE.md §16).
+"""The convective envelope carried by the shipped track grid (prioritize.stars.envelope).
 
 Outside references:
 
 - Helioseismology: base of the solar convection zone at r_bcz = 0.713 R_sun
   (Christensen-Dalsgaard, Gough & Thompson 1991, ApJ 378, 413); M_cz of the present
   Sun 0.0253 M_sun from this envelope model at the present solar mixture
-  (SCIENCE.md §16 [C]), ~0.025 M_sun in standard solar models (from memory).
+  (computed with OPAL + Ferguson opacities), ~0.025 M_sun in standard solar models (from memory).
 - Main-sequence stars hotter than ~7000 K have only thin surface convection zones,
   M_cz < 1e-5 M_sun (the issue's check; from memory).
 - Lower giant branch: M_cz/M between 0.65 and 0.9 and within 10 % of M - M_core
-  (the issue's check; SCIENCE.md §16 [C]: 0.70-0.84, within a few % of M - M_core).
+  (the issue's check; this envelope model with OPAL gives 0.70-0.84, within a few % of
+  M - M_core).
 - First-ascent giants below the RGB bump: T_bcz below ~4 MK (from memory).
 - Thin adiabatic envelope, T(r) = (2/5) (mu m_H G M/k)(1/r - 1/R) with mu = 0.6
-  (Kippenhahn, Weigert & Weiss 2012, §10.3; SCIENCE.md §16 [C]).
-- RGB bump: SCIENCE.md §14 [M] (log L ~1.5 at 1 M_sun, ~1.65 at 1.5 M_sun, ~1.9 at
+  (Kippenhahn, Weigert & Weiss 2012, §10.3).
+- RGB bump: approximate values from memory (log L ~1.5 at 1 M_sun, ~1.65 at 1.5 M_sun, ~1.9 at
   2 M_sun; rises with mass, falls with [Fe/H], Christensen-Dalsgaard 2015, MNRAS 453,
   666).  Measured on the shipped grid, bump log L at Z = 0.02 by initial mass:
   0.8: 1.14, 0.9: 1.24, 1.0: 1.32, 1.2: 1.48, 1.4: 1.63, 1.5: 1.68, 1.6: 1.74,
   1.8: 1.84, 2.0: 2.09 (none above ~2.1 M_sun); Z = 0.008: 1.36 at 0.8, 1.54 at 1.0,
   1.87 at 1.5; Z = 0.03: 1.06 at 0.8, 1.26 at 1.0, 1.60 at 1.5.  Our bump is
-  0.2-0.3 dex fainter than §14 at 0.8-1.0 M_sun: the envelope integration mixes
+  0.2-0.3 dex fainter than those values at 0.8-1.0 M_sun: the envelope integration mixes
   ~0.02-0.03 M_sun deeper at the end of first dredge-up than detailed models do
   (alpha solved so the envelope meets the core leaves almost no radiative buffer),
   and d log L/d M_core ~ 10 per M_sun.
@@ -42,7 +43,7 @@ from prioritize.stars.tracks import (DATA_COLUMNS, ENVELOPE_COLUMNS, PHASE_EEPS,
 
 SOLAR_RBCZ_FRACTION = 0.713          # Christensen-Dalsgaard et al. 1991
 SUN_RBCZ_TOL = 0.02                  # the grid's Sun is the fits' (L = 0.956, R = 0.985 at 4.57 Gyr), not the L = R = 1 calibration star
-SUN_M_CZ_MSUN = 0.0253               # SCIENCE.md §16 [C]
+SUN_M_CZ_MSUN = 0.0253               # this envelope model at the present solar mixture (computed)
 SUN_AGE_MYR = 4570.0
 HOT_MS_TEFF_K = 7000.0               # the issue's check
 HOT_MS_M_CZ_MAX_MSUN = 1e-5
@@ -50,7 +51,7 @@ LOWER_RGB_FRACTION = (0.65, 0.9)     # M_cz/M, the issue's check
 LOWER_RGB_CORE_REL_TOL = 0.10        # M_cz within 10 % of M - M_core ...
 LOWER_RGB_CORE_SHARE = 0.97          # ... for 97 % of the lower-giant-branch points (measured 97.5 %)
 LOWER_RGB_CORE_REL_MAX = 0.20        # ... and all within 20 % (measured worst 18.5 %)
-LOWER_RGB_MIN_MASS_MSUN = 0.8        # the M_cz/M bounds: SCIENCE.md §14 starts at 0.8 M_sun
+LOWER_RGB_MIN_MASS_MSUN = 0.8        # the M_cz/M bounds: the values from memory start at 0.8 M_sun
 HUBBLE_TIME_MYR = 13_800.0           # Planck 2018, from memory
 LOWER_RGB_LOGL_ABOVE_BASE = 0.2      # "lower giant branch": 0.2 dex above the base of the giant branch, below the bump
 RGB_T_BCZ_MAX_K = 4.8e6              # "below ~4 MK" from memory, +20 %: measured up to 4.67 MK (Z = 0.03, 1.1-1.25 M_sun, near the bump)
@@ -60,8 +61,8 @@ SUBGIANT_MONOTONIC_REL_TOL = 0.02    # per EEP step with the same alpha rule: st
 SUBGIANT_SWITCH_DROP_MAX = 0.25      # at the switch from the solar to the solved alpha (measured down to -20.5 %)
 SUBGIANT_GROWTH_MIN = 1.5            # M_cz at the base of the giant branch / at the end of the main sequence (measured >= 1.52)
 THIN_ENVELOPE_REL_TOL = 0.10         # adiabatic thin-envelope formula, mu = 0.6, deep half of a solar-type envelope
-BUMP_LOGL_SCIENCE = {1.0: 1.5, 1.5: 1.65, 2.0: 1.9}   # SCIENCE.md §14 [M]
-BUMP_LOGL_TOL_DEX = 0.35             # §14 is [M] (+-20-50 % timescales); our low-mass bump is ~0.3 dex faint (see above)
+BUMP_LOGL_SCIENCE = {1.0: 1.5, 1.5: 1.65, 2.0: 1.9}   # approximate values, from memory
+BUMP_LOGL_TOL_DEX = 0.35             # from memory (+-20-50 % timescales); our low-mass bump is ~0.3 dex faint (see above)
 FRESH_REL_TOL = 0.01                 # grid point vs a fresh integration with the stored inputs (stored to 2^-12..2^-14)
 OFF_GRID_REL_TOL = 0.10              # the issue's check: interpolated vs direct integration at off-grid masses
 OFF_GRID_MASSES = (1.075, 1.4375, 1.825)
@@ -160,7 +161,7 @@ def test_first_ascent_giants_below_the_bump_have_a_cool_convective_base(grid):
 
 
 def test_rgb_bump_luminosity(grid):
-    """Bump log L against SCIENCE.md §14, and its trends with mass and [Fe/H]."""
+    """Bump log L against the approximate values (from memory), and its trends with mass and [Fe/H]."""
     logl = {}
     for mass in BUMP_LOGL_SCIENCE:
         eep = rgb_bump_eep(grid, mass, 0.02)

@@ -1,10 +1,11 @@
 """Stellar parameters from photometry, checked against published values and references.
 
 Sources of the check values:
-- SCIENCE.md §4 table: Teff of the Casagrande+2021, Casagrande+2010 and Alonso+1999
-  relations, computed from the published coefficients.
-- SCIENCE.md §5 table: BC_V (Torres 2010) and BC_G (Andrae+2018).
-- SCIENCE.md §6: Gaia extinction ratios at X = 1, A0 = 0.3 (Babusiaux+2018).
+- Teff of the Casagrande+2021 (MNRAS 507, 2684), Casagrande+2010 (A&A 512, A54) and
+  Alonso+1999 (A&AS 140, 261) relations, computed from the published coefficients.
+- BC_V (Torres 2010, AJ 140, 1158) and BC_G (Andrae+2018, A&A 616, A8), computed from the
+  published coefficients.
+- Gaia extinction ratios at X = 1, A0 = 0.3 (Babusiaux+2018, A&A 616, A10).
 - The `extinction` library (PyPI), function `extinction.ccm89`: CCM89 A(lambda)/A_V.
 - astropy.constants (IAU 2015 nominal values: L_bol0, L_sun, R_sun, M_sun, sigma_sb, G).
 - Worked examples computed by hand in the docstrings below.
@@ -20,11 +21,11 @@ import pytest
 from prioritize.errors import CatalogError, PrioritizeError
 from prioritize.stars import photometry as ph
 
-TEFF_TOL_K = 5.0            # SCIENCE.md §4 check values are rounded to 1 K; 5 K as the brief sets
-BC_TOL_MAG = 0.005          # SCIENCE.md §5 table is rounded to 0.001 mag
-RATIO_TOL = 0.005           # SCIENCE.md §6 ratios are rounded to 0.01
+TEFF_TOL_K = 5.0            # the colour-Teff check values are rounded to 1 K; 5 K allowed
+BC_TOL_MAG = 0.005          # the BC check table is rounded to 0.001 mag
+RATIO_TOL = 0.005           # the Babusiaux et al. 2018 ratios are rounded to 0.01
 EXCESS_RATIO_TOL = 0.05     # E(BP-RP)/E(B-V) ~ 1.4 is quoted to 0.1
-CCM_TOL = 0.001             # SCIENCE.md §6 gives A(6708)/A_V = 0.795 to 3 decimals
+CCM_TOL = 0.001             # CCM89 A(6708)/A_V = 0.795 (the `extinction` library) to 3 decimals
 ROUND_TRIP_TOL_MAG = 1e-8   # bisection to ~1e-14 mag; margin for rounding
 ITERATION_TOL_MAG = 1e-8    # Newton on the intrinsic colour
 HAND_TOL_DEX = 1e-6         # hand-worked arithmetic, exact to the digits shown
@@ -42,27 +43,27 @@ LOGG_TOL_DEX = 1e-3         # LOGG_SUN = 4.438 is quoted to 3 decimals
     (1.40, 2.5, 0.0, 4378.0),
 ])
 def test_casagrande2021_check_values(bp_rp0, logg, feh, expected):
-    """SCIENCE.md §4 table, Casagrande et al. 2021 (Gaia DR3 BP-RP)."""
+    """Check values of Casagrande et al. 2021 (Gaia DR3 BP-RP)."""
     result = ph.teff_from_bp_rp(bp_rp0, logg, feh)
     assert result.valid
     assert abs(result.value - expected) <= TEFF_TOL_K
 
 
 def test_casagrande2010_check_values():
-    """SCIENCE.md §4 table: C10 at B-V = 0.653 gives 5741 K ([Fe/H] = 0) and 5498 K (-1)."""
+    """Casagrande et al. 2010: C10 at B-V = 0.653 gives 5741 K ([Fe/H] = 0) and 5498 K (-1)."""
     result = ph.teff_from_b_v_dwarf([0.653, 0.653], [0.0, -1.0])
     np.testing.assert_allclose(result.value, [5741.0, 5498.0], atol=TEFF_TOL_K)
     assert result.valid.all()
 
 
 def test_alonso1999_check_values():
-    """SCIENCE.md §4 table: A99 giants at B-V = 1.00 and 1.20 give 4804 K and 4443 K."""
+    """Alonso et al. 1999: A99 giants at B-V = 1.00 and 1.20 give 4804 K and 4443 K."""
     result = ph.teff_from_b_v_giant([1.00, 1.20], 0.0)
     np.testing.assert_allclose(result.value, [4804.0, 4443.0], atol=TEFF_TOL_K)
 
 
 def test_colour_teff_validity_ranges():
-    """Ranges of SCIENCE.md §4: C21 X <= 2.00 for logg > 3.2 but <= 2.55 for logg <= 3.2,
+    """Published ranges of the relations: C21 X <= 2.00 for logg > 3.2 but <= 2.55 for logg <= 3.2,
     logg 0-5, [Fe/H] -4 to 0.6; C10 0.18-1.29; A99 0.20-1.70.  NaN in -> NaN out."""
     c21 = ph.teff_from_bp_rp([2.2, 2.2, 0.1, 1.0, 1.0, np.nan], [4.4, 2.5, 4.4, 4.4, 5.5, 4.4],
                              [0.0, 0.0, 0.0, 0.7, 0.0, 0.0])
@@ -81,7 +82,7 @@ def test_casagrande2010_metal_poor_floor():
 
 
 def test_alonso1999_blend_is_continuous_and_matches_each_relation_at_the_overlap_edges():
-    """A99 coefficients of SCIENCE.md §4 at [Fe/H] = 0, by hand:
+    """A99 coefficients (Alonso et al. 1999) at [Fe/H] = 0, by hand:
     X = 0.70, blue: theta = 0.5716 + 0.5404*0.70 - 0.06126*0.49 = 0.9198626 -> 5479.08 K;
     X = 0.80, red:  theta = 0.6177 + 0.4354*0.80 - 0.004025*0.64 = 0.963444 -> 5231.23 K.
     In between the blend falls monotonically without steps."""
@@ -125,7 +126,7 @@ def test_bp_rp_from_teff_single_valued_where_the_fit_turns_over():
 # ---------------------------------------------------------------- extinction
 
 def test_gaia_extinction_ratios_at_reference_point():
-    """SCIENCE.md §6 (Babusiaux et al. 2018): at X = 1, A0 = 0.3, A_G/A_V = 0.81,
+    """Babusiaux et al. 2018: at X = 1, A0 = 0.3, A_G/A_V = 0.81,
     A_BP/A_V = 1.04, A_RP/A_V = 0.59 and E(BP-RP) ~ 1.4 E(B-V)."""
     ebv = 0.3 / 3.1
     result = ph.gaia_extinction_from_intrinsic(ebv, 1.0)
@@ -183,13 +184,13 @@ BC_TABLE_TEFF = [4000.0, 4500.0, 5000.0, 5772.0, 6500.0]
 
 
 def test_bc_v_torres_table():
-    """SCIENCE.md §5: BC_V (Torres 2010) = -1.124, -0.602, -0.286, -0.081, +0.007."""
+    """BC_V (Torres 2010) = -1.124, -0.602, -0.286, -0.081, +0.007."""
     result = ph.bc_v(BC_TABLE_TEFF)
     np.testing.assert_allclose(result.value, [-1.124, -0.602, -0.286, -0.081, 0.007], atol=BC_TOL_MAG)
 
 
 def test_bc_g_andrae_table():
-    """SCIENCE.md §5: BC_G (Andrae+2018) = -0.498, -0.211, -0.047, +0.060, +0.083."""
+    """BC_G (Andrae+2018) = -0.498, -0.211, -0.047, +0.060, +0.083."""
     result = ph.bc_g(BC_TABLE_TEFF)
     np.testing.assert_allclose(result.value, [-0.498, -0.211, -0.047, 0.060, 0.083], atol=BC_TOL_MAG)
 
@@ -202,7 +203,7 @@ def test_bc_validity():
 
 
 def test_bc_g_error_matches_table_slope():
-    """Mean-value check on SCIENCE.md §5: between 5000 K and 5772 K BC_G rises by
+    """Mean-value check on the BC_G table (Andrae+2018): between 5000 K and 5772 K BC_G rises by
     0.060 - (-0.047) = 0.107 mag, i.e. 1.386e-4 mag/K on average; the derivative at the
     midpoint 5386 K times a 100 K error must match 0.01386 mag to within the table's
     rounding (2 x 0.0005 mag over 772 K -> 1.3e-4 mag for 100 K) plus the cubic term by
@@ -212,7 +213,7 @@ def test_bc_g_error_matches_table_slope():
 
 
 def test_bc_v_error_matches_table_slope():
-    """As above for BC_V (Torres 2010, SCIENCE.md §5), inside one polynomial piece:
+    """As above for BC_V (Torres 2010), inside one polynomial piece:
     from 5772 K to 6500 K BC_V rises by 0.007 - (-0.081) = 0.088 mag, 1.209e-4 mag/K;
     at the midpoint 6136 K x 100 K -> 0.01209 mag, within the rounding (1.4e-4 mag) and
     the secant-versus-derivative term (~4e-4 mag)."""
@@ -314,7 +315,7 @@ def test_derive_catalog_values_win():
 
 
 def test_derive_teff_relations_and_sources():
-    """Rows reproduce the SCIENCE.md §4 check values through the table entry point:
+    """Rows reproduce the colour-Teff check values through the table entry point:
     C21 at X = 0.82, logg 4.44 (catalog logg) -> 5762 K, also after reddening the colour;
     C10 (dwarf stage) at B-V = 0.653 -> 5741 K; A99 (giant stage) at B-V = 1.00 -> 4804 K."""
     ebv_red = 0.2
@@ -360,7 +361,7 @@ def test_derive_logg_choice_is_recorded():
 def test_derive_worked_luminosity_and_distance():
     """The worked example above through the table: G = 10, parallax 10 mas (or a cluster
     distance of 100 pc), Teff 5772 K from the catalog, E(B-V) = 0 -> log L = -0.128,
-    R = sqrt(10^-0.128) = 0.8630 R_sun.  V = 10 with BC_V(5772) = -0.081 (SCIENCE.md §5):
+    R = sqrt(10^-0.128) = 0.8630 R_sun.  V = 10 with BC_V(5772) = -0.081 (Torres 2010):
     log L = -0.4 (10 - 5 - 0.081 - 4.74) = -0.0716."""
     df = pd.DataFrame({"teff_k": [5772.0] * 3, "g_mag": [10.0, 10.0, np.nan],
                        "v_mag": [np.nan, np.nan, 10.0], "parallax_mas": [10.0, np.nan, 10.0],

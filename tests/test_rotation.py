@@ -10,10 +10,10 @@ from prioritize.errors import ModelRangeError, PrioritizeError
 
 # --------------------------------------------------------------------- check values
 
-# SCIENCE.md §11 [C]: B-V = 0.65 at 4570 Myr -> 26.6 d (Barnes 2007), 26.2 d (MH08).
+# Computed from the published relations: B-V = 0.65 at 4570 Myr -> 26.6 d (Barnes 2007), 26.2 d (MH08).
 # Quoted to 0.1 d, so the tolerance is the rounding (0.05 d) plus a margin.
 GYRO_PERIOD_TOL_D = 0.06
-# SCIENCE.md §11 [C] spin-up check values: the task's 2%, plus half a unit of the
+# Spin-up check values computed from Delta J = M_p sqrt(G M a): the task's 2%, plus half a unit of the
 # quoted 0.1 km/s (the 0.9 and 1.0 km/s entries are rounded by 3-5%).
 SPIN_UP_REL_TOL = 0.02
 SPIN_UP_ROUNDING_KMS = 0.05
@@ -21,7 +21,7 @@ SPIN_UP_ROUNDING_KMS = 0.05
 # (common practice, from memory); 2% covers the quoted rounding.
 SUN_VEQ_KMS = 2.0
 SUN_VEQ_REL_TOL = 0.02
-# Lane-Emden moments of inertia vs the SCIENCE §11 values [from memory], quoted to
+# Lane-Emden moments of inertia vs the usual values [from memory], quoted to
 # 3 decimals.
 K2_TOL = 0.002
 # Closed-form inverses and half-maximum solutions: floating-point agreement.
@@ -31,7 +31,7 @@ FWHM_REL_TOL = 1e-6
 
 
 def test_gyro_check_values():
-    """SCIENCE.md §11 check values for both relations (Barnes 2007; Mamajek & Hillenbrand 2008)."""
+    """Check values for both relations (Barnes 2007; Mamajek & Hillenbrand 2008)."""
     period, _ = rot.gyro_period_barnes2007(0.65, 4570.0)
     assert period == pytest.approx(26.6, abs=GYRO_PERIOD_TOL_D)
     period, _ = rot.gyro_period_mh08(0.65, 4570.0)
@@ -75,7 +75,7 @@ def test_sun_equatorial_velocity():
 
 # ------------------------------------------------------------------------- spin-up
 
-SPIN_UP_TABLE = [  # SCIENCE.md §11 [C]: M, R, M_spun, k2, (1 M_J, 5 M_J) in km/s
+SPIN_UP_TABLE = [  # computed from Delta J = M_p sqrt(G M a): M, R, M_spun, k2, (1 M_J, 5 M_J) in km/s
     (1.0, 4.0, 1.0, 0.10, 2.1, 10.4),
     (1.0, 10.0, 0.7, 0.20, 0.9, 4.7),
     (1.5, 11.0, 1.5, 0.10, 1.0, 5.1),
@@ -349,7 +349,7 @@ def test_likelihood_ratio_is_bounded_and_the_dip_does_not_diverge():
 
 
 def test_one_jupiter_spins_an_early_giant_up_by_a_km_per_second():
-    """SCIENCE check rows / Lau et al. 2025: ~1-2 km/s for a 1 Msun, 4 Rsun giant; LR ~1 when slow."""
+    """Spin-up check rows / Lau et al. 2025: ~1-2 km/s for a 1 Msun, 4 Rsun giant; LR ~1 when slow."""
     dv = rot.engulfment_spin_up_kms(1.0, np.array([1.0]), np.array([4.0]), np.array([0.5]),
                                     np.array(["lower_giant_branch"]))
     assert 1.0 <= dv[0] <= 2.5

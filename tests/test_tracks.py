@@ -2,7 +2,7 @@
 
 Outside references:
 
-- SCIENCE.md §15 [C]: values computed with cosmic-popsynth's single-star evolution
+- Values computed with cosmic-popsynth's single-star evolution
   (the Hurley, Pols & Tout 2000 fits) at cosmic's default ``zsun = 0.014`` and
   Z = 0.014: the Sun at 4.57 Gyr has L = 0.956 L_sun, R = 0.985 R_sun,
   Teff = 5777 K; t_MS = 11.0 Gyr (1 M_sun), 3.37 / 2.25 / 1.16 Gyr (1.4 / 1.6 /
@@ -41,15 +41,15 @@ from prioritize.stars.tracks import (DATA_COLUMNS, ENVELOPE_COLUMNS, ENVELOPE_OU
                                      convective_envelope, feh_to_z, grid_from_table, load_grid,
                                      stage_of_eep, z_to_feh)
 
-SUN_AGE_MYR = 4570.0                         # SCIENCE.md §15
-SUN_L_LSUN, SUN_R_RSUN, SUN_TEFF_COSMIC_K = 0.956, 0.985, 5777.0   # SCIENCE.md §15 [C]
-SUN_REL_TOL = 0.001                          # the [C] values carry 3-4 significant digits
+SUN_AGE_MYR = 4570.0                         # the solar age used for the cosmic-popsynth check
+SUN_L_LSUN, SUN_R_RSUN, SUN_TEFF_COSMIC_K = 0.956, 0.985, 5777.0   # computed with cosmic-popsynth
+SUN_REL_TOL = 0.001                          # the computed values carry 3-4 significant digits
 SUN_TEFF_TOL_K = 1.0
 COSMIC_TEFF_SUN_K = 1000.0 * 1130.0 ** 0.25  # cosmic's Teff = 1000 (1130 L/R^2)^(1/4) K (its output, checked here)
 TEFF_SUN_IAU_K = 5772.0                      # IAU 2015 B3, the convention of the grid's logteff
-T_MS_GYR = {1.0: 11.0, 1.4: 3.37, 1.6: 2.25, 2.0: 1.16}   # SCIENCE.md §15 [C] (cosmic Z=0.014 = our Z=0.02)
-T_MS_REL_TOL = 0.005                         # 3 significant digits in SCIENCE.md
-FEH_OF_Z_003 = 0.18                          # SCIENCE.md §15: Z = 0.03 is [Fe/H] ~ +0.18 with Z_sun = 0.02
+T_MS_GYR = {1.0: 11.0, 1.4: 3.37, 1.6: 2.25, 2.0: 1.16}   # cosmic-popsynth (cosmic Z=0.014 = our Z=0.02)
+T_MS_REL_TOL = 0.005                         # the values above carry 3 significant digits
+FEH_OF_Z_003 = 0.18                          # Z = 0.03 is [Fe/H] ~ +0.18 with Z_sun = 0.02
 FEH_TOL = 0.01
 OFF_GRID_MASSES = (1.025, 1.3125, 2.225, 3.125)
 OFF_GRID_Z = 0.0155
@@ -84,8 +84,8 @@ def _relative_error(log_a, log_b):
 def test_cosmic_scales_z_by_its_zsun():
     """cosmic at (Z = 0.014, zsun = 0.014) evolves exactly as at (Z = 0.02, zsun = 0.02).
 
-    This is why the SCIENCE.md §15 [C] values, computed at cosmic's defaults, are
-    checked below against our Z = 0.02 (SCIENCE.md §15: "It rescales Z by its zsun").
+    This is why the cosmic-popsynth values above, computed at cosmic's defaults, are
+    checked below against our Z = 0.02 (cosmic rescales Z by its ``zsun`` option).
     """
     options = build_tracks.default_bse_options()
     t_ms = []
@@ -97,7 +97,7 @@ def test_cosmic_scales_z_by_its_zsun():
 
 
 def test_sun_at_solar_age(grid):
-    """Sun at 4.57 Gyr, Z = 0.02 (SCIENCE.md §15 [C]: L = 0.956, R = 0.985, Teff = 5777 K).
+    """Sun at 4.57 Gyr, Z = 0.02 (cosmic-popsynth: L = 0.956, R = 0.985, Teff = 5777 K).
 
     The grid's Teff follows from L and R with the IAU 5772 K; cosmic's 5777 K uses
     its own solar constant, 1000 * 1130**0.25 = 5797.9 K, so the grid gives
@@ -124,7 +124,7 @@ def test_cosmic_teff_convention():
 
 @pytest.mark.parametrize("mass", sorted(T_MS_GYR))
 def test_main_sequence_lifetime(grid, mass):
-    """t_MS (age at the first subgiant EEP) against SCIENCE.md §15 [C]; the masses are
+    """t_MS (age at the first subgiant EEP) against the cosmic-popsynth values; the masses are
     grid nodes, so this checks the build, not the interpolation."""
     start = PHASE_EEPS["subgiant"][0]
     t_ms = grid.interpolate(mass, 0.02, start, columns=["age_myr"])["age_myr"] / 1e3
@@ -132,7 +132,7 @@ def test_main_sequence_lifetime(grid, mass):
 
 
 def test_feh_z_conversions():
-    """Z = 0.02 x 10^[Fe/H] (Hurley et al. 2000 scale; SCIENCE.md §15)."""
+    """Z = 0.02 x 10^[Fe/H] (Hurley et al. 2000 scale)."""
     assert feh_to_z(0.0) == pytest.approx(0.02)
     assert z_to_feh(0.03) == pytest.approx(FEH_OF_Z_003, abs=FEH_TOL)
     feh = np.linspace(-1.0, 0.3, 7)

@@ -5,7 +5,8 @@ Usage (needs the ``grid`` extra, i.e. ``cosmic-popsynth``)::
     python -m prioritize.data.build_tracks --workers 2          # the shipped grid
     python -m prioritize.data.build_tracks --output small.parquet --masses 1.0,1.5 --z 0.02
 
-Recipe (SCIENCE.md §15).  Each initial mass and metallicity is evolved as a single
+Recipe (Hurley, Pols & Tout 2000, MNRAS 315, 543).  Each initial mass and
+metallicity is evolved as a single
 star with ``cosmic-popsynth``, which evaluates the single-star fitting formulae of
 Hurley, Pols & Tout (2000): ``InitialBinaries(m1=M, m2=0, porb=-1, ecc=-1,
 tphysf=TPHYSF_MYR, kstar1=1, kstar2=15, metallicity=Z)``, BSE options = the entries
@@ -33,7 +34,7 @@ few places listed in ``tests/test_tracks.py``; the tracks themselves are plannin
 estimates with the accuracy of the fits.
 
 Then the convective envelope of every track point is integrated
-(:func:`track_envelope`, SCIENCE.md §16; needs ``rm-tables``): one mixing length
+(:func:`track_envelope`, :mod:`prioritize.stars.envelope`; needs ``rm-tables``): one mixing length
 calibrated on the Sun (:func:`prioritize.stars.envelope.calibrate_solar_alpha` at
 Z = 0.02), alpha solved on the giant branch so that the envelope meets the core,
 at every k-th EEP of each phase (:data:`ENVELOPE_STRIDES`) and interpolated along
@@ -496,7 +497,7 @@ def envelope_stride_per_eep(strides=None):
 
 
 def track_envelope(track, z, alpha_solar, strides=None):
-    """Envelope columns of one resampled track (SCIENCE.md §16).
+    """Envelope columns of one resampled track (:mod:`prioritize.stars.envelope`).
 
     Calls :func:`prioritize.stars.envelope.envelope_along_track` with the stride of
     :func:`envelope_stride_per_eep` and converts its output to grid columns: the
@@ -715,7 +716,9 @@ def build(output=DEFAULT_OUTPUT, masses=DEFAULT_MASSES, z=DEFAULT_Z, command=Non
         "description": "Single-star tracks from the Hurley, Pols & Tout (2000, MNRAS 315, 543) "
                        "fitting formulae evaluated by cosmic-popsynth, resampled at equivalent "
                        "evolutionary points, with the convective envelope integrated at every "
-                       "track point by prioritize.stars.envelope (SCIENCE.md §16). Planning estimates.",
+                       "track point by prioritize.stars.envelope (Kippenhahn, Weigert & Weiss 2012, "
+                       "ch. 10-11; opacities of Iglesias & Rogers 1996 and Ferguson et al. 2005). "
+                       "Planning estimates.",
         "generator": "prioritize.data.build_tracks",
         "command": command or "python -m prioritize.data.build_tracks",
         "build_date_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),

@@ -1,14 +1,14 @@
 """Lithium burning at the base of a convective envelope (planning estimates).
 
 Surface lithium is destroyed by 7Li(p,alpha)4He where the envelope reaches
-T >~ 2.5 MK (SCIENCE.md §13).  The chain, one function per step:
+T >~ 2.5 MK (Pompéia et al. 2002, arXiv:astro-ph/0201472).  The chain, one function per step:
 
 1. :func:`rate_cf88` -- the reaction rate N_A<sigma v> (Caughlan & Fowler 1988);
 2. :func:`weak_screening_factor` -- its enhancement by electron and ion screening
    (Salpeter 1954, weak limit);
 3. :func:`li_destruction_timescale_yr` -- the local lifetime of a 7Li nucleus;
 4. :func:`burning_rate_exponent` and :func:`hot_layer_mass` -- the mass of the hot
-   layer at the convective base where the burning happens (SCIENCE.md §19);
+   layer at the convective base where the burning happens;
 5. :func:`surface_li_timescale_yr` -- the e-folding time of the envelope's (and so
    the surface's) lithium;
 6. :func:`burning_lifetime_myr` -- how long an engulfment excess stays above a
@@ -87,8 +87,7 @@ def rate_cf88(t9):
 
     References
     ----------
-    Caughlan, G. R. & Fowler, W. A. 1988, Atomic Data and Nuclear Data Tables 40, 283
-    (SCIENCE.md §13).
+    Caughlan, G. R. & Fowler, W. A. 1988, Atomic Data and Nuclear Data Tables 40, 283.
     """
     t9 = _positive("t9", "rate_cf88", t9)
     if np.any(t9 > CF88_MAX_T9):
@@ -186,7 +185,7 @@ def li_destruction_timescale_yr(t_k, rho_gcc, x=0.7, screening=True, *, z=Z_SUN_
 
     References
     ----------
-    Caughlan & Fowler 1988, ADNDT 40, 283; the SCIENCE.md §13 table (no screening).
+    Caughlan & Fowler 1988, ADNDT 40, 283 (check table in tests/test_burning.py, no screening).
     """
     t_k = _positive("t_k", "li_destruction_timescale_yr", t_k)
     rho = _positive("rho_gcc", "li_destruction_timescale_yr", rho_gcc)
@@ -275,8 +274,8 @@ def hot_layer_mass(r_bcz_rsun, rho_bcz_gcc, t_bcz_k, mass_msun, nabla_ad=0.4, nu
 
     References
     ----------
-    SCIENCE.md §19.  Kippenhahn, Weigert & Weiss, Stellar Structure and Evolution,
-    ch. 6-7 (pressure scale height, adiabatic stratification; from memory).
+    Kippenhahn, Weigert & Weiss, Stellar Structure and Evolution, ch. 6-7 (pressure
+    scale height, adiabatic stratification; from memory).
     """
     func = "hot_layer_mass"
     r_cm = _positive("r_bcz_rsun", func, r_bcz_rsun) * R_SUN_CM
@@ -325,7 +324,8 @@ def surface_li_timescale_yr(t_bcz_k, rho_bcz_gcc, r_bcz_rsun, m_cz_msun, mass_ms
 
     References
     ----------
-    SCIENCE.md §13 and §19; Caughlan & Fowler 1988, ADNDT 40, 283.
+    Caughlan & Fowler 1988, ADNDT 40, 283; Kippenhahn, Weigert & Weiss, Stellar Structure
+    and Evolution, ch. 6-7 (the hot layer, :func:`hot_layer_mass`).
     """
     func = "surface_li_timescale_yr"
     m_cz = _positive("m_cz_msun", func, m_cz_msun)
@@ -376,7 +376,8 @@ def burning_lifetime_myr(z_now, z_threshold, a_enrichment_dex, tau_surf_yr):
 
     References
     ----------
-    SCIENCE.md §18-§19 (significance and signature lifetime).
+    Caughlan & Fowler 1988, ADNDT 40, 283 (the rate behind tau_surf,
+    :func:`surface_li_timescale_yr`).
     """
     z_now = np.asarray(z_now, dtype=float)
     z_th = np.asarray(z_threshold, dtype=float)

@@ -2,7 +2,8 @@
 
 A planet spiralling into its star either dissolves in the convective envelope, where
 its lithium mixes to the surface, or reaches the convective base (mostly) intact and
-is lost to the surface lithium budget (SCIENCE.md §12, §18).  Three scenarios:
+is lost to the surface lithium budget (Jia & Spruit 2018, ApJ 864, 169; Siess & Livio
+1999, MNRAS 304, 925).  Three scenarios:
 
 ``full``
     all the planet's material reaches the envelope (the upper bound).
@@ -131,7 +132,7 @@ def planet_mean_density(mass_mjup, radius_cm):
 
     References
     ----------
-    SCIENCE.md §12 (mean densities of the solar-system planets).
+    Mean densities of the solar-system planets from memory (Jupiter 1.326 g cm^-3).
     """
     mass_g, radius = _mass_g_and_radius(mass_mjup, radius_cm, "planet_mean_density")
     return 3.0 * mass_g / (4.0 * np.pi * radius ** 3)
@@ -152,7 +153,7 @@ def escape_velocity(mass_mjup, radius_cm):
 
     References
     ----------
-    Any mechanics text; SCIENCE.md §12 uses it in the disruption criterion.
+    Any mechanics text; Jia & Spruit 2018, ApJ 864, 169 use it in the disruption criterion.
     """
     mass_g, radius = _mass_g_and_radius(mass_mjup, radius_cm, "escape_velocity")
     return np.sqrt(2.0 * G_CGS * mass_g / radius)
@@ -180,7 +181,7 @@ def disruption_pressure(mass_mjup, radius_cm, strength=DISRUPTION_STRENGTH):
 
     References
     ----------
-    Jia, S. & Spruit, H. C. 2018, ApJ 864, 169 (SCIENCE.md §12).
+    Jia, S. & Spruit, H. C. 2018, ApJ 864, 169.
     """
     if not strength > 0:
         raise ConfigError(f"disruption strength C must be > 0; got {strength!r}")
@@ -205,7 +206,7 @@ def orbital_velocity(r_rsun, enclosed_mass_msun):
 
     References
     ----------
-    Newtonian circular orbit; SCIENCE.md §12.
+    Newtonian circular orbit (any mechanics text).
     """
     r_cm = _positive("r_rsun", "orbital_velocity", r_rsun) * R_SUN_CM
     m_g = _positive("enclosed_mass_msun", "orbital_velocity", enclosed_mass_msun) * M_SUN_G
@@ -230,7 +231,7 @@ def virial_temperature(mass_mjup, radius_cm, mu=MU_PLANET):
 
     References
     ----------
-    Siess, L. & Livio, M. 1999, MNRAS 304, 925 and 308, 1133 (SCIENCE.md §12).
+    Siess, L. & Livio, M. 1999, MNRAS 304, 925 and 308, 1133.
     """
     mass_g, radius = _mass_g_and_radius(mass_mjup, radius_cm, "virial_temperature")
     return G_CGS * mass_g * mu * M_H_CGS / (K_B_CGS * radius)
@@ -346,7 +347,7 @@ def ram_pressure_disruption_radius(mass_mjup, radius_cm, r_rsun, rho_gcc, enclos
     -----
     For Jupiter (4.8e13 erg cm^-3) around 1 M_sun: rho_* >= 0.025 g cm^-3 at 1 R_sun
     (437 km s^-1).  Newer simulations find continuous ablation rather than one
-    disruption depth (SCIENCE.md §12), so r_d is indicative.
+    disruption depth (Lau et al. 2026, arXiv:2605.11343), so r_d is indicative.
 
     References
     ----------
@@ -399,7 +400,7 @@ def ram_pressure_deposited_fraction(mass_mjup, radius_cm, r_rsun, rho_gcc, enclo
     1 if the planet is disrupted above the convective base (the end of the profile);
     otherwise the fraction stripped on the way down, :func:`stripped_fraction` of the
     largest ram-pressure ratio met above the base (the intact remnant sinks below the
-    envelope and its lithium is lost to the surface; SCIENCE.md §18).
+    envelope and its lithium is lost to the surface; Jia & Spruit 2018, ApJ 864, 169).
 
     Parameters
     ----------
@@ -509,7 +510,7 @@ def deposited_fraction(scenario, mass_mjup, kind, profile_r_rsun, profile_rho_gc
 
     References
     ----------
-    Jia & Spruit 2018, ApJ 864, 169; Siess & Livio 1999, MNRAS 304, 925; SCIENCE.md §12, §18.
+    Jia & Spruit 2018, ApJ 864, 169; Siess & Livio 1999, MNRAS 304, 925.
     """
     if scenario not in SCENARIOS:
         raise ConfigError(f"deposition scenario must be one of {', '.join(SCENARIOS)}; "

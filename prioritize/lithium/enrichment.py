@@ -1,7 +1,7 @@
 """Surface lithium after a planet is mixed into the convective envelope.
 
-Atom counting (SCIENCE.md §2): the star's envelope and the planet each bring hydrogen
-and lithium atoms; the new abundance is the ratio of the sums,
+Atom counting (from the definition A(X) = 12 + log10(N_X/N_H)): the star's envelope and
+the planet each bring hydrogen and lithium atoms; the new abundance is the ratio of the sums,
 
     A_new = 12 + log10[(N_Li,* + N_Li,p) / (N_H,* + N_H,p)]
 
@@ -84,7 +84,7 @@ def enriched_abundance(a_star, m_cz_msun, m_planet_msun, composition: PlanetComp
 
     References
     ----------
-    SCIENCE.md §2 (atom counting); check table there.
+    Atom counting from the definition of A(X); check table in tests/test_enrichment.py.
     """
     m_cz = np.asarray(m_cz_msun, dtype=float)
     n_h_star = np.asarray(x_star, dtype=float) * m_cz / AMU_H

@@ -1,4 +1,4 @@
-"""The lithium baseline from the user's own reference population (SCIENCE.md §17).
+"""The lithium baseline from the user's own reference population (binned, common practice).
 
 A reference population is the user's abundance table: ``teff_k``, ``logg``, ``a_li``,
 optionally ``feh`` and ``a_li_is_limit`` (an upper limit, "A(Li) < value").  It is
@@ -204,7 +204,7 @@ def scatter_from_quartiles(q25, q50, q75):
 
     sigma = (q75 - q25) / 1.349, the interquartile range of a Gaussian in units of its
     sigma (2 Phi^-1(0.75) = 1.3490).  For an uncensored Gaussian sample it estimates
-    the same sigma as 1.4826 × MAD, the robust scatter of SCIENCE.md §17, which is not
+    the same sigma as 1.4826 × MAD, the robust scatter of common practice, which is not
     defined for censored data (the absolute deviations of limits are unknown).  When
     q25 is undefined (NaN: more than a quarter of the Kaplan–Meier mass lies below the
     lowest detection) the upper half is used, sigma = (q75 - q50) / 0.6745, which
@@ -319,7 +319,8 @@ class ReferenceBaseline:
 
         References
         ----------
-        Feigelson & Nelson 1985, ApJ 293, 192 (censored estimator); SCIENCE.md §17.
+        Feigelson & Nelson 1985, ApJ 293, 192 (censored estimator); the binning and the
+        robust scatter are common practice.
         """
         steps = {"teff_step": teff_step, "logg_step": logg_step}
         if feh_step is not None:

@@ -11,6 +11,7 @@ Layout (one module per concept):
 - ``commands``      the ``night`` and ``season`` command-line functions (I/O edge)
 
 Importing ``offline`` (which every module that computes times does) configures astropy to use only its bundled IERS tables
-(SCIENCE.md §21): nothing here touches the network.  All times and hours are
+(settings measured with astropy 6-8, tests/test_sky.py): nothing here
+touches the network.  All times and hours are
 planning estimates; the observatory's own tools and rules prevail.
 """

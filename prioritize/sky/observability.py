@@ -1,6 +1,6 @@
 """Where the Sun, the Moon and the targets are in the sky of a site, and when.
 
-The fast method of SCIENCE.md §21: astropy gives the apparent sidereal time at
+The fast method used here: astropy gives the apparent sidereal time at
 every time step and the apparent (true equator and equinox of date, TETE)
 directions of the targets once per night; the altitude is then one dot product of
 unit vectors,
@@ -18,7 +18,8 @@ spline carries them to every time step and the observer's geocentric position
 (rotated by the sidereal time) is subtracted, which makes them topocentric (the
 Moon's parallax reaches 1°).
 
-Definitions used throughout (they reproduce the check values of SCIENCE.md §21):
+Definitions used throughout (they reproduce the offline check values measured with
+astropy 6-8 and an independent ephemeris library, tests/test_sky.py):
 
 - sunset / sunrise: the Sun's centre at geometric altitude −0.833° (34′ of
   horizontal refraction plus 16′ of semi-diameter; no correction for the
@@ -145,7 +146,7 @@ def airmass_pickering(altitude_deg_) -> np.ndarray:
     X = 1 / sin(h + 244 / (165 + 47 h^1.1)),  h in degrees.
 
     Valid from the zenith down to the horizon (X ≈ 38 at h = 0); within 0.34% of
-    sec z above 30° altitude (SCIENCE.md §21).  Pickering's h is the apparent
+    sec z above 30° altitude (measured here, tests/test_sky.py).  Pickering's h is the apparent
     (refracted) altitude; the geometric altitude used here is lower by the
     refraction (1.7′ at 30°), which changes X by < 0.2% above 30°.  Below the
     horizon X is ``inf``.
@@ -218,7 +219,7 @@ def illuminated_fraction(sun_xyz, moon_xyz) -> np.ndarray:
     References
     ----------
     Meeus, J. 1998, *Astronomical Algorithms*, 2nd ed., ch. 48, eq. 48.1 (k) and the
-    phase angle from the geocentric elongation (from memory); SCIENCE.md §21.
+    phase angle from the geocentric elongation (from memory).
     """
     s = np.asarray(sun_xyz, dtype=float)
     m = np.asarray(moon_xyz, dtype=float)
@@ -255,7 +256,8 @@ def apparent_directions(ra_deg, dec_deg, mjd: float) -> np.ndarray:
 
     Applies precession, nutation and annual aberration once; over one night the
     directions change by < 0.3″ (aberration), so one transform per night suffices
-    (SCIENCE.md §21).  Proper motions are not applied: the catalog positions are
+    (measured against astropy's full AltAz transform, tests/test_sky.py).  Proper
+    motions are not applied: the catalog positions are
     taken as valid at the observing epoch.
 
     Parameters
@@ -490,7 +492,8 @@ def night_events(site: Site, date: dt.date) -> NightEvents:
 
     References
     ----------
-    Definitions of the events: module docstring; check values SCIENCE.md §21.
+    Definitions of the events: module docstring; offline check values measured with
+    astropy 6-8, tests/test_sky.py.
     """
     noon, next_noon = local_noon_mjd(site, [date, date + dt.timedelta(days=1)])
     step = _EVENT_STEP_MINUTES / 1440.0

@@ -4,7 +4,8 @@ astropy converts UTC to UT1 (Earth rotation) and applies polar motion with the
 IERS tables bundled in ``astropy-iers-data``.  With its default settings astropy
 tries to download fresh tables and, once the bundled predictions are more than
 30 days old, refuses to compute at all.  :func:`configure_offline` switches this
-off (SCIENCE.md §21) so that nothing in :mod:`prioritize.sky` touches the network.
+off (settings measured with astropy 6-8, tests/test_sky.py) so that nothing in
+:mod:`prioritize.sky` touches the network.
 
 Dates past the end of the bundled table are computed with UT1-UTC held at its
 last tabulated value and polar motion set to its long-term mean.  While leap
@@ -59,7 +60,7 @@ def configure_offline() -> None:
 
     References
     ----------
-    SCIENCE.md §21 (offline sky computations, measured with astropy 6-8).
+    Offline sky computations measured with astropy 6-8 (tests/test_sky.py).
     """
     iers.conf.auto_download = False
     iers.conf.auto_max_age = None

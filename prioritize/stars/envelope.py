@@ -1,7 +1,8 @@
 """Outer convective envelope from an integration inward from the photosphere.
 
 Given a star's mass M, radius R and luminosity L (from the track grid) and its
-composition, the envelope is integrated inward (SCIENCE.md §16) with ln P as the
+composition, the envelope is integrated inward (Kippenhahn, Weigert & Weiss 2012,
+ch. 10-11) with ln P as the
 independent variable:
 
     d ln r/d ln P = -H_P / r,                    H_P = P/(rho g),  g = G m/r^2
@@ -84,7 +85,7 @@ from .eos import check_composition, hydrogen_mass_fraction, tabulate_eos
 from .opacity import opacity_function
 
 SOLAR_BCZ_RADIUS_FRACTION = 0.713   # Christensen-Dalsgaard, Gough & Thompson 1991, ApJ 378, 413
-LITHIUM_BURNING_T_K = 2.5e6         # 7Li(p,alpha) destroys Li above ~2.5 MK (SCIENCE.md §13)
+LITHIUM_BURNING_T_K = 2.5e6         # 7Li(p,alpha) destroys Li above ~2.5 MK (Pompéia et al. 2002)
 LN_P_STEP = 0.1                     # RK4 step in ln P; 0.025 changes solar T_bcz by 0.04 %, F-dwarf M_cz by 0.7 %
 T_STOP_K = 3.0e6                    # no-core integrations stop past this T in a radiative layer
 R_STOP_FRACTION = 0.05              # ... or at r < 0.05 R (the envelope then reaches the centre)
@@ -295,7 +296,7 @@ def mixing_length_gradient(nabla_rad, nabla_ad, u):
 
 
 def thin_envelope_temperature(r_rsun, mass_msun, radius_rsun, mu=0.6):
-    """Temperature of a thin adiabatic (n = 3/2) envelope: the SCIENCE.md §16 check.
+    """Temperature of a thin adiabatic (n = 3/2) envelope: a check of the integrator.
 
     T(r) = (2/5) (mu m_H G M/k) (1/r - 1/R), for an envelope of negligible mass
     (m(r) ~ M) that is adiabatic with nabla = 2/5 throughout.
@@ -316,7 +317,7 @@ def thin_envelope_temperature(r_rsun, mass_msun, radius_rsun, mu=0.6):
 
     References
     ----------
-    Kippenhahn, Weigert & Weiss 2012, §10.3 (adiabatic envelopes); SCIENCE.md §16.
+    Kippenhahn, Weigert & Weiss 2012, §10.3 (adiabatic envelopes).
     """
     r = np.asarray(r_rsun, dtype=float) * R_SUN_CM
     big_r = np.asarray(radius_rsun, dtype=float) * R_SUN_CM
@@ -910,8 +911,8 @@ def rgb_bump_position(mass_msun, core_mass_msun, m_cz_msun, kstar) -> float:
 
     References
     ----------
-    SCIENCE.md §16; Kippenhahn, Weigert & Weiss 2012, ch. 32-33 (first dredge-up,
-    the shell reaching the discontinuity); Christensen-Dalsgaard 2015, MNRAS 453, 666.
+    Kippenhahn, Weigert & Weiss 2012, ch. 32-33 (first dredge-up, the shell reaching
+    the discontinuity); Christensen-Dalsgaard 2015, MNRAS 453, 666.
     """
     mass, core, m_cz, kstar = (np.asarray(a, dtype=float) for a in (mass_msun, core_mass_msun, m_cz_msun, kstar))
     fdu = np.isin(kstar, (2, 3)) & np.isfinite(m_cz)
@@ -945,7 +946,7 @@ def rgb_bump_index(mass_msun, core_mass_msun, m_cz_msun, kstar) -> int:
 
     References
     ----------
-    SCIENCE.md §16; Kippenhahn, Weigert & Weiss 2012, ch. 32-33.
+    Kippenhahn, Weigert & Weiss 2012, ch. 32-33.
     """
     position = rgb_bump_position(mass_msun, core_mass_msun, m_cz_msun, kstar)
     return -1 if np.isnan(position) else int(np.ceil(position))
@@ -1024,7 +1025,8 @@ def envelope_along_track(track: dict, z: float, alpha_solar: float, x: float | N
 
     References
     ----------
-    SCIENCE.md §15-16; Hurley, Pols & Tout 2000, MNRAS 315, 543 (kstar codes).
+    Hurley, Pols & Tout 2000, MNRAS 315, 543 (kstar codes); Kippenhahn, Weigert & Weiss
+    2012, ch. 10-11 (envelope).
     """
     missing = [k for k in _REQUIRED_TRACK_KEYS if k not in track]
     if missing:

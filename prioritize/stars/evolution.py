@@ -14,9 +14,9 @@ stage names (:data:`prioritize.catalog.status.STAGES`):
 - ``red_clump``: core-helium burning
 
 RGB bump: :func:`rgb_bump` takes it from the grid's envelope integration (the deepest
-penetration of the envelope, SCIENCE.md §16).  For grids without envelopes, the
+penetration of the envelope, :mod:`prioritize.stars.envelope`).  For grids without envelopes, the
 interim :func:`rgb_bump_logl` gives the luminosity of the bump interpolated in
-initial mass from the approximate solar-metallicity values of SCIENCE.md §14
+initial mass from approximate solar-metallicity values
 (log L = 1.4, 1.5, 1.65, 1.9 at 0.8, 1.0, 1.5, 2.0 M_sun; from memory) and shifted
 by -0.35 dex per dex of [Fe/H] (the bump is fainter in metal-rich stars;
 Christensen-Dalsgaard 2015, MNRAS 453, 666; slope from memory).  Above 2.2 M_sun
@@ -108,8 +108,9 @@ def stage_eep_range(stage: str, phase_eeps):
 def rgb_bump(grid, mass, z):
     """RGB bump of each (initial mass, Z) track: (fractional EEP, log L/L_sun).
 
-    From the grid's envelope integration where the grid carries a bump (SCIENCE.md §16:
-    the core reaches the deepest point of first dredge-up); there, a track without a
+    From the grid's envelope integration where the grid carries a bump
+    (:func:`prioritize.stars.envelope.rgb_bump_position`: the core reaches the deepest
+    point of first dredge-up); there, a track without a
     bump (helium ignites first) gives NaN.  A grid without envelopes falls back to the
     interim luminosity of :func:`rgb_bump_logl` (EEP NaN)."""
     from .tracks import BUMP_COLUMN, rgb_bump_eep, z_to_feh

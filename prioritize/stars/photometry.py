@@ -9,8 +9,10 @@ The table-level entry point is :func:`derive_stellar_parameters`: it keeps every
 the catalog gives and derives the rest, recording for each row where each number came
 from (``*_source`` columns) and why a value could not be derived (``deriv_note``).
 
-All numbers are planning estimates from published empirical calibrations (SCIENCE.md
-§4-§6); they are no substitute for a spectroscopic analysis of the star.
+All numbers are planning estimates from published empirical calibrations (Casagrande
+et al. 2021, 2010; Alonso et al. 1999; Torres 2010; Andrae et al. 2018; Cardelli,
+Clayton & Mathis 1989; Babusiaux et al. 2018); they are no substitute for a
+spectroscopic analysis of the star.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ import pandas as pd
 from ..constants import LOGG_SUN, MBOL_SUN, TEFF_SUN_K
 from ..errors import CatalogError, PrioritizeError
 
-# --- Colour-Teff: Casagrande et al. 2021 (Gaia DR3 BP-RP), SCIENCE.md §4 -------------
+# --- Colour-Teff: Casagrande et al. 2021, MNRAS 507, 2684 (Gaia DR3 BP-RP) ----------
 # Teff = a0 + a1 X + a2 X^2 + a3 X^3 + a4 X^5 + g (a5 + a6 X + a7 X^2 + a8 X^3 + a9 X^5)
 #        + f (a10 + a11 X + a12 X^2 + a13 X^3) + a14 f g X
 C21_COEFFS = (7980.8845, -4138.3457, 1264.9366, -130.4388, 0.0, 285.8393, -324.2196,
@@ -54,13 +56,13 @@ A99_SCATTER_RED_K = 96.0          # from memory, Alonso et al. 1999 Table 2
 
 # --- Extinction ------------------------------------------------------------------------
 R_V_DEFAULT = 3.1                 # Cardelli, Clayton & Mathis 1989
-A_6708_OVER_A_V = 0.795           # CCM89 A(6708 A)/A_V at R_V = 3.1, SCIENCE.md §6
+A_6708_OVER_A_V = 0.795           # CCM89 A(6708 A)/A_V at R_V = 3.1 (the `extinction` library's ccm89)
 # Babusiaux et al. 2018, eq. 1 / Table 1: k = c1 + c2 X + c3 X^2 + c4 X^3 + c5 A0 + c6 A0^2 + c7 X A0
 GAIA_K_G = (0.9761, -0.1704, 0.0086, 0.0011, -0.0438, 0.0013, 0.0099)
 GAIA_K_BP = (1.1517, -0.0871, -0.0333, 0.0173, -0.0230, 0.0006, 0.0043)
 GAIA_K_RP = (0.6104, -0.0170, -0.0026, -0.0017, -0.0078, 0.00005, 0.0006)
 GAIA_EXTINCTION_ITERATIONS = 6    # Newton steps for the intrinsic colour
-GAIA_E_BP_RP_PER_EBV = 1.4        # E(BP-RP)/E(B-V) at X = 1, A0 = 0.3 (SCIENCE.md §6): starting guess
+GAIA_E_BP_RP_PER_EBV = 1.4        # E(BP-RP)/E(B-V) at X = 1, A0 = 0.3 (Babusiaux et al. 2018): starting guess
 
 # --- Bolometric corrections -----------------------------------------------------------
 # Andrae et al. 2018: BC_G = sum a_i (Teff - 5772)^i; pieces below / above 4000 K.

@@ -28,7 +28,7 @@ main-sequence lifetime exceeds ~16 Gyr lose their envelope before or during core
 burning; their core-He-burning EEPs are NaN (``kstar`` -1).
 
 Every track point also carries the outer convective envelope from our envelope
-integration (SCIENCE.md §16, :mod:`prioritize.stars.envelope`, run when the grid
+integration (:mod:`prioritize.stars.envelope`, run when the grid
 is built, never at run time): M_cz, the radius, temperature and density at its
 base, the lithium-preserving mass above 2.5 MK, the mixing length, a quality code
 (:data:`prioritize.stars.envelope.TRACK_QUALITY_MEANINGS`), log rho and log T at
@@ -87,7 +87,7 @@ TRACK_COLUMNS = {
     "mass_msun": "current mass after wind mass loss (M_sun)",
     "core_mass_msun": "helium core mass (M_sun); zero on the main sequence in the Hurley et al. fits",
     "m_cz_msun": "mass of the outer convective envelope (M_sun): our envelope integration "
-                 "(SCIENCE.md §16) in the built-in grid; in older grid files the fits' crude estimate",
+                 "(prioritize.stars.envelope) in the built-in grid; in older grid files the fits' crude estimate",
     "kstar": "phase code of Hurley et al. 2000 (0/1 main sequence, 2 Hertzsprung gap, "
              "3 giant branch, 4 core-He burning); -1 where the track has no such phase",
 }
@@ -553,8 +553,8 @@ def convective_envelope(grid, mass, z, eep):
 
     Every part of the package reads envelope properties through this function, so
     that the source of the numbers can change in one place.  In the built-in grid
-    they come from our envelope integration (SCIENCE.md §16,
-    :mod:`prioritize.stars.envelope`) done when the grid was built: an inward
+    they come from our envelope integration
+    (:mod:`prioritize.stars.envelope`) done when the grid was built: an inward
     integration from a grey photosphere with mixing-length convection (one alpha
     calibrated on the Sun; on the giant branch alpha solved so the envelope meets
     the core), Saha EOS and OPAL + Ferguson opacities.  Here they are only
@@ -616,7 +616,8 @@ def envelope_profile(grid, mass, z, eep):
 
     References
     ----------
-    Kippenhahn, Weigert & Weiss 2012, ch. 10-11; SCIENCE.md §12 and §16.
+    Kippenhahn, Weigert & Weiss 2012, ch. 10-11; Jia & Spruit 2018, ApJ 864, 169 (the
+    disruption the profiles are for).
     """
     cols = grid.interpolate(mass, z, eep, columns=["logr", "r_bcz_rsun"])
     prof = grid.profile(mass, z, eep)
@@ -630,13 +631,14 @@ def rgb_bump_eep(grid, mass, z):
 
     Each grid track stores its bump: the giant-branch point where the core mass
     reaches the deepest mass coordinate mixed by the convective envelope during
-    first dredge-up, M_core = min(M - M_cz) (SCIENCE.md §16; interpolated in core
+    first dredge-up, M_core = min(M - M_cz) (Kippenhahn, Weigert & Weiss 2012, ch. 32-33;
+    :func:`prioritize.stars.envelope.rgb_bump_position`; interpolated in core
     mass between EEPs).  Between tracks the bump EEP is interpolated linearly in
     mass and log Z; giant-branch EEPs are equal steps in log L from the base to the
     tip, so this interpolates the bump's fractional position in log L.  Planning
     estimate: the bump luminosity depends on the depth of first dredge-up, which
     the envelope model makes ~0.02 M_sun too deep for low-mass stars (log L of the
-    bump 0.2-0.3 dex fainter than SCIENCE.md §14 at 0.8-1.0 M_sun, close at 1.4-1.6
+    bump 0.2-0.3 dex fainter than the usual values, from memory, at 0.8-1.0 M_sun, close at 1.4-1.6
     M_sun; see ``tests/test_grid_envelope.py``).
 
     Parameters
