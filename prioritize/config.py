@@ -120,6 +120,11 @@ class ObservingConfig:
     ew_floor_mA: float = _spec(5.0, lo=0.0, hi=200.0,
                                doc="systematic EW floor (continuum placement, Fe I 6707.4 blend): "
                                    "smaller rises are not measurable, and A(Li) below it is a limit")
+    cool_limit_k: float = _spec(4000.0, lo=2500.0, hi=6000.0,
+                                doc="below this Teff TiO bands blanket 6708 A and the line-strength "
+                                    "model is extrapolated: A(Li) is harder to measure")
+    cool_measured_factor: float = _spec(0.2, lo=0.0, hi=1.0,
+                                        doc="P(measured) is multiplied by this below cool_limit_k")
 
 
 @dataclass(frozen=True)

@@ -806,7 +806,9 @@ def _observing_columns(out, df, model_logg, cfg):
     out["overhead_s"] = np.where(np.isfinite(plan.exposure_s), plan.overhead_s, np.nan)
     out["time_on_target_s"] = plan.total_s
     out["delta_ew_measurable"] = measurable
-    out["p_measured"] = np.where(measurable, np.clip((plan.snr_reached / snr) ** 2, 0.0, 1.0), 0.0)
+    cool = np.isfinite(teff) & (teff < cfg.observing.cool_limit_k)
+    p_measured = np.where(measurable, np.clip((plan.snr_reached / snr) ** 2, 0.0, 1.0), 0.0)
+    out["p_measured"] = np.where(cool, cfg.observing.cool_measured_factor, 1.0) * p_measured
     out["instrument"] = inst.name
     computed = np.isfinite(teff) & np.isfinite(out["a_li_enriched"].to_numpy(float))
     lines, missing = spectra.lines_to_measure(
@@ -821,6 +823,10 @@ def _observing_columns(out, df, model_logg, cfg):
                           np.where(small, f"EW(6708) rise below the {cfg.observing.ew_floor_mA:g} mA systematic "
                                           "floor (continuum placement, Fe I 6707.4 blend): not counted as "
                                           "measurable", ""))
+    out["note"] = _append(out["note"].to_numpy(object),
+                          np.where(computed & cool, f"Teff below {cfg.observing.cool_limit_k:.0f} K: TiO "
+                                   "blankets 6708 A and the line-strength fit is extrapolated; P(measured) "
+                                   f"x {cfg.observing.cool_measured_factor:g}", ""))
     no_mag = computed & ~np.isfinite(r_c)
     out["note"] = _append(out["note"].to_numpy(object),
                           np.where(no_mag, "no magnitude for an exposure estimate (give g_mag+bp_rp "

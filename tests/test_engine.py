@@ -241,3 +241,19 @@ def test_giants_past_the_bump_and_clump_stars_keep_a_finite_priority():
     assert small.loc["red_clump", "z_enrich"] < Config().thresholds.z_signature
     assert small.loc["red_clump", "li_rich_tail_fraction"] > 0
     assert small.loc["upper_giant_branch", "li_rich_tail_fraction"] == 0
+
+
+def test_too_cool_for_a_clean_6708_line_is_penalised_not_dropped():
+    """Below ~4000 K TiO bands blanket 6708 A and the line-strength fit (made to
+    4000-7000 K; spectra.ew_model_valid) is extrapolated (common practice): P(measured)
+    is multiplied by observing.cool_measured_factor, with a note; the star keeps a
+    finite priority."""
+    rows = pd.DataFrame([{"star_id": "m_giant", "mass_msun": 1.1, "mass_msun_err": 0.0,
+                          "stage": "upper_giant_branch", "teff_k": 3750, "teff_k_err": 0.0, "feh": 0.0,
+                          "feh_err": 0.0, "g_mag": 8.0, "bp_rp": 2.3}])
+    cool = run_batch(validate_catalog(rows), Config()).iloc[0]
+    lifted = run_batch(validate_catalog(rows), with_overrides(Config(), {"observing.cool_limit_k": 3000.0})).iloc[0]
+    factor = Config().observing.cool_measured_factor
+    assert lifted["p_measured"] > 0
+    np.testing.assert_allclose(cool["p_measured"], factor * lifted["p_measured"])
+    assert "TiO" in cool["note"] and "TiO" not in lifted["note"]

@@ -359,7 +359,8 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("overhead_s", FLOAT, "s", "readout and acquisition"),
     _out("time_on_target_s", FLOAT, "s", "exposure_s + overhead_s"),
     _out("delta_ew_measurable", BOOL, "", "the EW rise exceeds the systematic floor (observing.ew_floor_mA)"),
-    _out("p_measured", FLOAT, "", "(S/N reached / S/N needed)^2, at most 1; 0 when not measurable"),
+    _out("p_measured", FLOAT, "", "(S/N reached / S/N needed)^2, at most 1; 0 when not measurable; x observing."
+         "cool_measured_factor below observing.cool_limit_k (TiO blanketing)"),
     _out("instrument", TEXT, "", "instrument preset or file the cost is computed for"),
     _out("lines_to_measure", TEXT, "", "diagnostic lines worth taking in the same exposure"),
     _out("coverage_missing", TEXT, "", "diagnostics that apply but fall outside the instrument's coverage"),

@@ -69,7 +69,9 @@ SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
         Shown("z observed is a limit", "z_observed_is_limit", "{}"),
         Shown("planet that explains it", "m_planet_needed_mjup", "{:.3g}", "M_J"))),
     ("Enrichment  (atom counting, prioritize.lithium.enrichment; planet = {cfg.planet.mass_mjup:g} M_J "
-     "{cfg.planet.kind}, X_p = {cfg.planet.hydrogen_fraction:g}, A(Li)_p = {cfg.planet.a_li:g})", (
+     "{cfg.planet.kind}, X_p = {cfg.planet.hydrogen_fraction:g}, A(Li)_p = {cfg.planet.a_li:g} "
+     "raised by log10(Z_p / 0.0142) with Z_p = {cfg.planet.bulk_metallicity:g} when "
+     "li_follows_metals = {cfg.planet.li_follows_metals})", (
         Shown("deposition", "deposition_scenario", "{}"),
         Shown("M_p", "m_planet_msun", "{:.3e}", "Msun"),
         Shown("A(Li) after mixing into M_cz", "a_li_enriched", "{:.2f}"),
@@ -91,20 +93,31 @@ SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
         Shown("anomaly", "rot_anomaly_sigma", "{:+.1f}", "sigma"),
         Shown("rapid rotator", "rapid_rotator", "{}"),
         Shown("planet for the spin excess", "m_planet_spin_mjup", "{:.3g}", "M_J"),
-        Shown("spin vs lithium", "spin_li_consistency", "{}"))),
+        Shown("spin vs lithium", "spin_li_consistency", "{}"),
+        Shown("share of the lifetime the spin-up stays visible", "spin_visible_fraction", "{:.3g}"),
+        Shown("likelihood ratio p(v | engulfed) / p(v | normal)", "rotation_likelihood_ratio", "{:.3g}"))),
     ("Observing cost  (prioritize.spectra, prioritize.exposure; Cayrel 1988; airmass "
-     "{cfg.observing.airmass:g}, {cfg.observing.k_sigma:g} sigma)", (
+     "{cfg.observing.airmass:g}, {cfg.observing.k_sigma:g} sigma; floors: S/N >= "
+     "{cfg.observing.min_snr_per_pixel:g} per pixel, Delta EW >= {cfg.observing.ew_floor_mA:g} mA; "
+     "P(measured) x {cfg.observing.cool_measured_factor:g} below {cfg.observing.cool_limit_k:.0f} K)", (
         Shown("instrument", "instrument", "{}"),
         Shown("EW(6708) baseline", "ew_base_mA", "{:.1f}", "mA"),
         Shown("EW(6708) enriched", "ew_enriched_mA", "{:.1f}", "mA"),
-        Shown("Delta EW", "delta_ew_mA", "{:.1f}", "mA"), Shown("line FWHM", "line_fwhm_A", "{:.3f}", "A"),
+        Shown("Delta EW", "delta_ew_mA", "{:.1f}", "mA"),
+        Shown("Delta EW clears the systematic floor", "delta_ew_measurable", "{}"), Shown("line FWHM", "line_fwhm_A", "{:.3f}", "A"),
         Shown("S/N per pixel needed", "snr_needed", "{:.0f}"), Shown("R_C", "r_c_mag", "{:.2f}", "mag"),
         Shown("exposure", "exposure_s", "{:.0f}", "s"), Shown("exposure limit", "exposure_flag", "{}"),
         Shown("S/N reached", "snr_at_exposure", "{:.0f}"), Shown("overhead", "overhead_s", "{:.0f}", "s"),
         Shown("lines to take", "lines_to_measure", "{}"),
         Shown("outside coverage", "coverage_missing", "{}"))),
     ("Priority = expected detections per hour  (prioritize.score; `prioritize rank` orders by it)", (
-        Shown("P(engulfed)", "p_engulfed", "{:.3g}"),
+        Shown("giant planets swept by the growing radius (prioritize.engulfment)", "planets_swept", "{:.3g}"),
+        Shown("capture radius now", "capture_radius_now_rsun", "{:.3g}", "Rsun"),
+        Shown("capture radius one lifetime ago", "capture_radius_then_rsun", "{:.3g}", "Rsun"),
+        Shown("of it from dynamically delivered planets", "p_background", "{:.3g}"),
+        Shown("P(engulfed | history)", "p_engulfed_history", "{:.3g}"),
+        Shown("x rotation likelihood ratio", "rotation_likelihood_ratio", "{:.3g}"),
+        Shown("P(engulfed) = p LR / (1 - p + p LR)", "p_engulfed", "{:.3g}"),
         Shown("P(z >= {thr:g})", "p_detect", "{:.3f}"),
         Shown("P(measured)", "p_measured", "{:.3f}"),
         Shown("time on target", "time_on_target_s", "{:.0f}", "s"),
