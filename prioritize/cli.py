@@ -152,15 +152,16 @@ def rank(
 
     Example: prioritize rank candidates.csv -o ranked.parquet --planet-mass 5
     """
-    from .catalog.io import write_table
+    from .catalog.io import catalog_stem, check_output_path, write_table
     from .engine import rank_table
     from .report.terminal import status_summary, top_table
 
+    output = check_output_path(output or Path(f"{catalog_stem(catalog)}_ranked.csv"),
+                               [catalog] + ([config] if config else []))
     cfg, table, messages = _load(catalog, config, columns, {**overrides, "run.top": top})
     for m in messages:
         typer.echo(f"  {m}", err=True)
     ranked = rank_table(table, cfg, progress=_progress())
-    output = output or Path(f"{catalog.name.split('.')[0]}_ranked.csv")
     write_table(ranked, output, _metadata(cfg, catalog))
     typer.echo(top_table(ranked, cfg.run.top))
     typer.echo("")

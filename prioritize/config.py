@@ -174,8 +174,10 @@ def _check_value(section: str, f: dataclasses.Field, value: Any) -> Any:
             raise ConfigError(f"{key} must be a whole number, got {value!r}")
         value = expected(value)
         lo, hi = meta.get("lo"), meta.get("hi")
-        if value != value and expected is float:  # NaN means "not set"
-            return value
+        if value != value and expected is float:
+            if f.default != f.default:         # NaN means "not set" where that is the default
+                return value
+            raise ConfigError(f"{key} must be a number, got nan")
         if (lo is not None and value < lo) or (hi is not None and value > hi):
             raise ConfigError(f"{key} = {value!r} is outside the allowed range {lo} to {hi}")
         return value
@@ -184,7 +186,7 @@ def _check_value(section: str, f: dataclasses.Field, value: Any) -> Any:
                 isinstance(v, (int, float)) and not isinstance(v, bool) for v in value):
             raise ConfigError(f"{key} must be a list of numbers, got {value!r}")
         lo, hi = meta.get("lo"), meta.get("hi")
-        bad = [v for v in value if (lo is not None and v < lo) or (hi is not None and v > hi)]
+        bad = [v for v in value if v != v or (lo is not None and v < lo) or (hi is not None and v > hi)]
         if bad:
             raise ConfigError(f"{key} has {bad} outside the allowed range {lo} to {hi}")
         return tuple(float(v) for v in value)

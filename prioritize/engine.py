@@ -42,6 +42,7 @@ ODDS_COLUMNS = ("p_engulfed_history", "planets_swept", "capture_radius_now_rsun"
 DEPOSITION_COLUMNS = ("deposited_fraction_full", "deposited_fraction_ram_pressure",
                       "deposited_fraction_virial", "disruption_radius_ram_rsun",
                       "disruption_radius_virial_rsun")
+BREAKUP_KMS_SOLAR = 436.76  # sqrt(G M_sun / R_sun) in km/s (IAU 2015 nominal GM_sun and R_sun)
 MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
@@ -454,6 +455,24 @@ def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
         return _run_batch(df, cfg, grid, rng, reference)
 
 
+def _without_rejected_values(df: pd.DataFrame, status: np.ndarray) -> pd.DataFrame:
+    """The batch as the chain computes it: rows that validation already rejected
+    (any status but ok: invalid_value, duplicate_id, ...) have their numeric inputs
+    blanked, so that no step downstream (rotation, line widths, exposure) meets a
+    value outside its domain and one bad row cannot stop the batch.  Their status and
+    note say why; the output passes their inputs through unchanged."""
+    rejected = status != st.OK
+    if not rejected.any():
+        return df
+    df = df.copy()
+    for c in df.columns:
+        if c not in ("star_id", "status", "note") and pd.api.types.is_numeric_dtype(df[c]) \
+                and not pd.api.types.is_bool_dtype(df[c]):
+            df[c] = df[c].astype(float)
+            df.loc[rejected, c] = np.nan
+    return df
+
+
 def _run_batch(df, cfg, grid, rng, reference):
     grid = grid or load_grid()
     rng = rng or np.random.default_rng(cfg.scoring.seed)
@@ -461,6 +480,8 @@ def _run_batch(df, cfg, grid, rng, reference):
     df = with_cluster_context(df.reset_index(drop=True), cfg)
     status = df["status"].to_numpy(object).copy()
     note = df["note"].fillna("").to_numpy(object).copy()
+    given = df                       # what the catalog gave: passed through to the output
+    df = _without_rejected_values(df, status)
     params = derive_stellar_parameters(df)
     route = _routes(df, params)
     active = status == st.OK
@@ -587,11 +608,11 @@ def _run_batch(df, cfg, grid, rng, reference):
     out["status"] = status
     out["note"] = _append(note, out["note"].to_numpy(object))
     out["rank"] = np.nan
-    extra = [c for c in df.columns if c not in out.columns and c not in ("status", "note")]
-    passthrough = df[extra].rename(columns={c: c for c in extra})
-    clash = [c for c in df.columns if c in out.columns and c not in ("star_id", "status", "note")]
+    extra = [c for c in given.columns if c not in out.columns and c not in ("status", "note")]
+    passthrough = given[extra].rename(columns={c: c for c in extra})
+    clash = [c for c in given.columns if c in out.columns and c not in ("star_id", "status", "note")]
     for c in clash:
-        passthrough[f"input_{c}"] = df[c].to_numpy()
+        passthrough[f"input_{c}"] = given[c].to_numpy()
     other = [c for c in out.columns if _is_other_planet_column(c)]
     return pd.concat([out[OUTPUT_COLUMNS + other], passthrough.reset_index(drop=True)], axis=1)
 
@@ -701,8 +722,21 @@ def _rotation_columns(out, df, params, age_samples, cfg):
             cluster_period, spread = seq.predict(b_v0)
             cluster_ln = spread / cluster_period
     veq = 2.0 * np.pi * radius * R_SUN_CM / 1e5 / (prot * 86400.0)
-    veq_err = veq * np.hypot(np.nan_to_num(prot_err / prot), RADIUS_FRACTIONAL_ERROR)
     mass = out["mass_msun"].to_numpy(float)
+    # nothing rotates faster than break-up, v_crit = sqrt(G M / R) (a definition)
+    v_crit = BREAKUP_KMS_SOLAR * np.sqrt(mass / radius)
+    too_fast_p = np.isfinite(veq) & (veq > v_crit)
+    too_fast_v = np.isfinite(vsini) & (vsini > v_crit)
+    out["note"] = _append(out["note"].to_numpy(object), np.where(
+        too_fast_p, [f"prot_d = {p:.3g} d gives v_eq = {v:.3g} km/s, above break-up ({c:.0f} km/s): "
+                     "period not used" for p, v, c in zip(prot, veq, v_crit)], ""))
+    out["note"] = _append(out["note"].to_numpy(object), np.where(
+        too_fast_v, [f"vsini_kms = {v:.3g} is above break-up ({c:.0f} km/s): not used"
+                     for v, c in zip(vsini, v_crit)], ""))
+    prot = np.where(too_fast_p, np.nan, prot)
+    veq = np.where(too_fast_p, np.nan, veq)
+    vsini = np.where(too_fast_v, np.nan, vsini)
+    veq_err = veq * np.hypot(np.nan_to_num(prot_err / prot), RADIUS_FRACTIONAL_ERROR)
     m_cz = np.minimum(out["m_cz_msun"].to_numpy(float), mass)   # initial vs current mass
     usable = stage_ok & np.isfinite(radius) & np.isfinite(mass)
     spin_up = np.full(n, np.nan)

@@ -26,11 +26,13 @@ Apache Parquet format specification (file and schema key-value metadata).
 from __future__ import annotations
 
 import contextlib
+import glob
 import gzip
 import json
 import os
 import re
 import tempfile
+import time
 import warnings
 from datetime import datetime, timezone
 from pathlib import Path
@@ -73,6 +75,38 @@ _WRITE_UNITS = {**_CONVERTIBLE_UNITS, "Rsun": "solRad", "Myr": "Myr", "mag": "ma
 
 
 # ----------------------------------------------------------------------------- formats
+
+def catalog_stem(path: str | os.PathLike) -> str:
+    """The file name without its catalog extension: ``a.b.csv`` -> ``a.b``,
+    ``stars.csv.gz`` -> ``stars`` (unknown extensions: the name without its last suffix)."""
+    name = Path(path).name
+    for ext in sorted(_EXTENSIONS, key=len, reverse=True):
+        if name.lower().endswith(ext):
+            return name[: -len(ext)] or name
+    return Path(name).stem
+
+
+def check_output_path(output: str | os.PathLike, inputs=()) -> Path:
+    """Refuse an output path before any work is done: an unknown extension, a missing
+    or unwritable folder, or a path that is one of the ``inputs`` (the catalog would be
+    overwritten)."""
+    output = Path(output)
+    table_format(output, writing=True)
+    if not output.parent.is_dir():
+        raise CatalogError(f"cannot be written: folder {output.parent} does not exist", path=str(output))
+    if not os.access(output.parent, os.W_OK):
+        raise CatalogError(f"cannot be written: folder {output.parent} is not writable", path=str(output))
+    for given in inputs:
+        try:
+            same = output.resolve() == Path(given).resolve() or (
+                output.exists() and os.path.samefile(output, given))
+        except OSError:
+            same = False
+        if same:
+            raise CatalogError("is the input catalog: choose another output path (-o) so the "
+                               "catalog is not overwritten", path=str(output))
+    return output
+
 
 def table_format(path: str | os.PathLike, writing: bool = False) -> str:
     """The format key (``csv``, ``tsv``, ``parquet``, ``fits``, ``ecsv``, ``votable``)
@@ -342,9 +376,33 @@ def _open_text(path: Path):
     return open(path, encoding="utf-8-sig", errors="replace")
 
 
+def _separator(path: Path, fmt: str) -> str:
+    """The field separator of a text catalog: tab for .tsv; for .csv a comma, unless
+    the header line has no comma but semicolons or tabs (spreadsheets in many locales
+    write ';'), so such a file is not read as one column."""
+    if fmt == "tsv":
+        return "\t"
+    try:
+        with _open_text(path) as handle:
+            skipped = _comment_lines(path)
+            header = ""
+            for number, line in enumerate(handle):
+                if number >= skipped:
+                    header = line
+                    break
+    except (OSError, EOFError):
+        return ","
+    if "," in header:
+        return ","
+    for sep in (";", "\t", "|"):
+        if sep in header:
+            return sep
+    return ","
+
+
 def _csv_header(path: Path, fmt: str) -> list[str]:
     try:
-        return [str(c) for c in pd.read_csv(path, sep="\t" if fmt == "tsv" else ",", nrows=0,
+        return [str(c) for c in pd.read_csv(path, sep=_separator(path, fmt), nrows=0,
                                             skiprows=_comment_lines(path), encoding="utf-8-sig").columns]
     except pd.errors.EmptyDataError as exc:
         raise CatalogError(f"is empty (no header line); accepted formats: {ACCEPTED_FORMATS}",
@@ -358,7 +416,7 @@ def _csv_header(path: Path, fmt: str) -> list[str]:
 def _read_csv(path: Path, fmt: str, text_columns: list[str]) -> pd.DataFrame:
     skipped = _comment_lines(path)
     try:
-        return pd.read_csv(path, sep="\t" if fmt == "tsv" else ",", skiprows=skipped,
+        return pd.read_csv(path, sep=_separator(path, fmt), skiprows=skipped,
                            dtype={c: str for c in text_columns}, encoding="utf-8-sig",
                            low_memory=False, float_precision="round_trip")
     except pd.errors.ParserError as exc:
@@ -612,6 +670,9 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, metadata: dict | N
     metadata = _plain_json(metadata or {})
     writer = _WRITERS[fmt]
     try:
+        sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
+        if fmt in ("csv", "tsv") and sidecar.exists():
+            sidecar.unlink()        # the previous run's provenance must not describe this table
         with atomic_target(path) as temporary:
             writer(table, temporary, metadata, path)
         if fmt in ("csv", "tsv") and metadata:
@@ -641,10 +702,24 @@ def _plain_json(value):
     return str(value)
 
 
+STALE_TEMPORARY_S = 3600.0   # a run killed mid-write leaves .NAME.*.part; older than this is stale
+
+
+def _remove_stale_temporaries(path: Path) -> None:
+    """Delete temporaries of ``path`` left by a run that was killed while writing
+    (older than :data:`STALE_TEMPORARY_S`, so a concurrent writer is not disturbed)."""
+    now = time.time()
+    for old in path.parent.glob(f".{glob.escape(path.name)}.*.part"):
+        with contextlib.suppress(OSError):
+            if now - old.stat().st_mtime > STALE_TEMPORARY_S:
+                old.unlink()
+
+
 @contextlib.contextmanager
 def atomic_target(path: Path):
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success,
     delete it on failure."""
+    _remove_stale_temporaries(path)
     handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     os.close(handle)
     temporary = Path(name)
