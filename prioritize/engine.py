@@ -42,6 +42,7 @@ ODDS_COLUMNS = ("p_engulfed_history", "planets_swept", "capture_radius_now_rsun"
 DEPOSITION_COLUMNS = ("deposited_fraction_full", "deposited_fraction_ram_pressure",
                       "deposited_fraction_virial", "disruption_radius_ram_rsun",
                       "disruption_radius_virial_rsun")
+FEH_BEYOND_GRID_DEX = 0.3   # [Fe/H] further than this (and 3 sigma) beyond the grid: not placed
 BREAKUP_KMS_SOLAR = 436.76  # sqrt(G M_sun / R_sun) in km/s (IAU 2015 nominal GM_sun and R_sun)
 MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
@@ -495,6 +496,22 @@ def _run_batch(df, cfg, grid, rng, reference):
 
     star, mass, z, eep, placed, pnote, chi2 = _place(df, params, route, grid, cfg, rng)
     note = _append(note, pnote)
+    # a metallicity far outside the tracks is not extrapolated (the map refuses it too)
+    feh_in, feh_in_err = params["feh"].to_numpy(float), params["feh_err"].to_numpy(float)
+    lo, hi = z_to_feh(grid.z.min()), z_to_feh(grid.z.max())
+    beyond = np.fmax(lo - feh_in, feh_in - hi)
+    off_grid = (route != "") & np.isfinite(beyond) & (
+        beyond > np.fmax(FEH_BEYOND_GRID_DEX, 3.0 * np.nan_to_num(feh_in_err, nan=0.1)))
+    if off_grid.any():
+        placed = placed & ~off_grid
+        keep = ~np.isin(star, np.flatnonzero(off_grid))      # all samples of those stars
+        star, mass, z, eep = star[keep], mass[keep], z[keep], eep[keep]
+        for said in ("[Fe/H] outside the grid range; nearest grid metallicity used", "[Fe/H] clamped to the grid range"):
+            note[off_grid] = np.array([n.replace(said + "; ", "").replace("; " + said, "").replace(said, "")
+                                       for n in note[off_grid]], dtype=object)
+        note[off_grid] = _append(note[off_grid], np.array(
+            [f"[Fe/H] = {f:+.2f} is outside the track grid ({lo:+.2f} to {hi:+.2f}): not extrapolated"
+             for f in feh_in[off_grid]], dtype=object))
     unplaced = (route != "") & ~placed
     status[unplaced] = st.OUT_OF_MODEL_RANGE
     out = pd.DataFrame({"star_id": df["star_id"].astype(str).to_numpy() if "star_id" in df

@@ -151,3 +151,29 @@ def test_an_unwritable_home_does_not_stop_the_tool(tmp_path):
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     assert "Traceback" not in done.stderr
+
+
+def test_metallicity_far_outside_the_tracks_is_not_ranked(tmp_path):
+    """[Fe/H] = -3 against tracks that cover about -0.8 to +0.2 is out_of_model_range
+    with a note naming the grid's range (the detectability map refuses it too); a star
+    just past the edge within its error is still ranked."""
+    body = ("poor,5700,4.4,-3.0,10,0.8,25,2\nedge,5700,4.4,-0.9,10,0.8,25,2\ngood," + GOOD)
+    result, out = _rank(tmp_path, body)
+    assert result.exit_code == 0, result.output
+    assert out.loc["poor", "status"] == "out_of_model_range"
+    assert "outside the track grid" in out.loc["poor", "note"]
+    assert np.isnan(out.loc["poor", "priority"]) or out.loc["poor", "priority"] == 0
+    assert out.loc["edge", "status"] == "ok"
+    assert out.loc["poor", "rank"] != 1
+
+
+def test_a_truncated_fits_catalog_is_called_truncated(tmp_path):
+    from astropy.table import Table
+    whole = tmp_path / "whole.fits"
+    Table({"star_id": ["a"] * 50, "teff_k": [5700.0] * 50}).write(whole)
+    cut = tmp_path / "cut.fits"
+    cut.write_bytes(whole.read_bytes()[:4000])        # inside the table's header/data blocks
+    result = runner.invoke(app, ["check", str(cut)])
+    assert result.exit_code == 2
+    assert "truncated" in result.output and "cut.fits" in result.output
+    assert runner.invoke(app, ["check", str(whole)]).exit_code == 0

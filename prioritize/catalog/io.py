@@ -475,15 +475,36 @@ def _read_parquet(path: Path) -> tuple[pd.DataFrame, dict, list[str]]:
     return frame, {}, []
 
 
+def _fits_truncated(path: Path, hdul) -> bool:
+    """True when the file is shorter than its headers say (a FITS file is a whole
+    number of 2880-byte blocks, each HDU's data as long as its header declares)."""
+    size = path.stat().st_size
+    if path.name.lower().endswith(".gz"):
+        return False
+    try:
+        end = max(h.fileinfo()["datLoc"] + h.fileinfo()["datSpan"] for h in hdul)
+    except (KeyError, TypeError, OSError, ValueError):
+        return True
+    return size < end or size % 2880 != 0
+
+
 def _read_astropy(path: Path, fmt: str):
     from astropy.table import Table
 
     if fmt == "fits":
         from astropy.io import fits
 
-        with fits.open(path) as hdul:
-            index = next((i for i, hdu in enumerate(hdul)
-                          if isinstance(hdu, (fits.BinTableHDU, fits.TableHDU))), None)
+        with warnings.catch_warnings(record=True) as seen:
+            warnings.simplefilter("always")
+            with fits.open(path) as hdul:
+                hdul.verify("silentfix")
+                index = next((i for i, hdu in enumerate(hdul)
+                              if isinstance(hdu, (fits.BinTableHDU, fits.TableHDU))), None)
+                short = _fits_truncated(path, hdul)
+        truncated = short or any("truncated" in str(w.message).lower() for w in seen)
+        if truncated:
+            raise CatalogError("is truncated (the file ends before its last header or data block); "
+                               "copy or download it again", path=str(path))
         if index is None:
             raise CatalogError("has no table extension (FITS images are not catalogs)", path=str(path))
         table = Table.read(path, format="fits", hdu=index)
