@@ -166,10 +166,16 @@ def _place(df, params, route, grid, cfg, rng):
             p = placement.place_by_posterior(grid, teff[rows], teff_err[rows], logl[rows],
                                              logl_err[rows], logg[rows], logg_err[rows], feh[rows],
                                              feh_err[rows], rng, s)
+        redo = np.zeros(0, int)
+        if name == "mass+stage":
+            p, redo = _stage_contradicted_by_l(grid, p, rows, teff, logl, logl_err, s)
         placed[rows] = p.placed
-        note[rows] = p.note
+        note[rows] = _append(note[rows], p.note)
         chi2[rows] = p.chi2_min
         parts.append((rows[p.star], p.mass, p.z, p.eep))
+        # placed from Teff and L by the posterior step below; the output's
+        # placement_method says so
+        route[redo] = "Teff+L"
     if parts:
         star, mass, z, eep = (np.concatenate(x) for x in zip(*parts))
         order = np.argsort(star, kind="stable")
@@ -177,6 +183,44 @@ def _place(df, params, route, grid, cfg, rng):
     else:
         star = mass = z = eep = np.zeros(0)
     return star.astype(int), mass, z, eep, placed, note, chi2
+
+
+STAGE_L_CONTRADICTION_SIGMA = 5.0   # given stage vs measured log L: beyond this ...
+STAGE_L_CONTRADICTION_DEX = 0.3     # ... and this far (dex), place by Teff+L instead
+
+
+def _stage_contradicted_by_l(grid, p, rows, teff, logl, logl_err, s):
+    """Rows of a mass+stage placement whose given stage the measured luminosity
+    contradicts (the placed models' median log L more than
+    :data:`STAGE_L_CONTRADICTION_SIGMA` away): they are taken out of ``p`` and
+    returned (catalog row numbers) to be placed from Teff and L instead, with a note.
+    A given stage is otherwise respected."""
+    have = np.isfinite(teff[rows]) & np.isfinite(logl[rows])
+    if not (have & p.placed).any() or p.star.size == 0:
+        return p, np.zeros(0, int)
+    model_l = grid.interpolate(p.mass, p.z, p.eep, columns=["logl"])["logl"].reshape(-1, s)
+    local = p.star.reshape(-1, s)[:, 0]
+    err = np.where(np.isfinite(logl_err[rows]) & (logl_err[rows] > 0), logl_err[rows], 0.1)
+    # the closest of the stage's samples (they span the mass error): a stage is only
+    # contradicted when none of its models at the given mass reaches the luminosity
+    gap = np.nanmin(np.abs(model_l - logl[rows][local][:, None]), axis=1)
+    dist = gap / err[local]
+    # and by a stage-sized gap (a factor 2 in L), not a mass-luminosity tension
+    bad_local = local[have[local] & (dist > STAGE_L_CONTRADICTION_SIGMA) & (gap > STAGE_L_CONTRADICTION_DEX)]
+    if bad_local.size == 0:
+        return p, np.zeros(0, int)
+    keep = ~np.isin(p.star, bad_local)
+    note = p.note.copy()
+    for j, d in zip(local, dist):
+        if j in bad_local:
+            # the mass+stage clash notes described models that are no longer used
+            note[j] = (f"the given stage is contradicted by log L = {logl[rows][j]:.2f} ({d:.0f} sigma "
+                       "from the closest of the stage's models at this mass): placed from Teff and L instead, the "
+                       "catalog mass and stage not used")
+    placed = p.placed.copy()
+    placed[bad_local] = False
+    return placement.Placement(p.star[keep], p.mass[keep], p.z[keep], p.eep[keep], placed, note,
+                               p.chi2_min), rows[bad_local]
 
 
 def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
@@ -594,6 +638,16 @@ def _run_batch(df, cfg, grid, rng, reference):
     out["baseline_source"] = _scatter(n, idx, res.get("baseline_source"), object)
     out["baseline_n"] = _scatter(n, idx, res.get("baseline_n"), float)
     model_logg = _scatter(n, idx, res.get("model_logg"), float)
+    # a given logg the placement did not use (L was given) must agree with the model
+    g_in, g_err = _column(df, "logg"), _column(df, "logg_err")
+    g_err = np.where(np.isfinite(g_err) & (g_err > 0), g_err, placement.DEFAULT_ERRORS["logg"])
+    g_dist = np.abs(model_logg - g_in) / g_err
+    g_clash = (out["placement_method"].to_numpy(object) == "Teff+L") & np.isfinite(g_dist) \
+        & (g_dist > placement.CLASH_SIGMA)
+    out.loc[g_clash, "note"] = _append(out.loc[g_clash, "note"].to_numpy(object), np.array(
+        [f"logg = {g:.2f} given, the placement from Teff and L has {m:.2f} ({d:.1f} sigma): check "
+         "the logg, the parallax and the photometry" for g, m, d in
+         zip(g_in[g_clash], model_logg[g_clash], g_dist[g_clash])], dtype=object))
     out["a_li_detection_limit"] = _scatter(n, idx, res.get("a_li_detection_limit"), float)
     compared = np.fmax(out["a_li_base"].to_numpy(float),
                        np.nan_to_num(out["a_li_detection_limit"].to_numpy(float), nan=-np.inf))

@@ -257,3 +257,28 @@ def test_too_cool_for_a_clean_6708_line_is_penalised_not_dropped():
     assert lifted["p_measured"] > 0
     np.testing.assert_allclose(cool["p_measured"], factor * lifted["p_measured"])
     assert "TiO" in cool["note"] and "TiO" not in lifted["note"]
+
+
+def test_a_stage_the_luminosity_contradicts_is_not_kept():
+    """A 'main_sequence' K star with log L = 1.6 cannot be a dwarf (a 1.2 M_sun dwarf
+    has log L < 0.6; Hurley, Pols & Tout 2000 tracks): it is placed from Teff and L,
+    and the note says the given stage was not used.  A consistent subgiant keeps its
+    mass and stage."""
+    rows = pd.DataFrame([
+        {"star_id": "lum", "mass_msun": 1.2, "mass_msun_err": 0.1, "stage": "main_sequence", "teff_k": 4800,
+         "teff_k_err": 80, "logl_lsun": 1.6, "logl_lsun_err": 0.05, "feh": 0.0, "g_mag": 9.0, "bp_rp": 1.2},
+        {"star_id": "fine", "mass_msun": 1.2, "mass_msun_err": 0.05, "stage": "main_sequence", "teff_k": 6000,
+         "teff_k_err": 80, "feh": 0.0, "g_mag": 9.0, "bp_rp": 0.65}])
+    out = run_batch(validate_catalog(rows), Config()).set_index("star_id")
+    assert out.loc["lum", "placement_method"] == "Teff+L"
+    assert out.loc["lum", "stage"] != "main_sequence"
+    assert "contradicted by log L" in out.loc["lum", "note"]
+    assert out.loc["fine", "placement_method"] == "mass+stage" and out.loc["fine", "stage"] == "main_sequence"
+
+
+def test_a_given_logg_that_clashes_with_the_placement_gets_a_note():
+    rows = pd.DataFrame([{"star_id": "g", "teff_k": 5000, "logl_lsun": 1.5, "logl_lsun_err": 0.05,
+                          "logg": 4.5, "logg_err": 0.1, "feh": 0.0, "g_mag": 9.0, "bp_rp": 1.0}])
+    out = run_batch(validate_catalog(rows), Config()).iloc[0]
+    assert out["placement_method"] == "Teff+L"
+    assert "logg = 4.50 given" in out["note"]
