@@ -155,17 +155,17 @@ def _place(df, params, route, grid, cfg, rng):
         if name == "mass+stage":
             p = placement.place_by_mass_stage(
                 grid, _column(df, "mass_msun")[rows], _column(df, "mass_msun_err")[rows],
-                _column(df, "stage", object)[rows], feh[rows], rng, s,
+                _column(df, "stage", object)[rows], feh[rows], placement._subset(rng, rows), s,
                 teff=teff[rows], teff_err=teff_err[rows], logg=logg[rows], logg_err=logg_err[rows],
                 logl=logl[rows], logl_err=logl_err[rows])
         elif name == "cluster isochrone":
             p = placement.place_on_isochrone(grid, teff[rows], teff_err[rows], logl[rows],
                                              logl_err[rows], _column(df, "cluster_age_gyr")[rows],
-                                             feh[rows], rng, s)
+                                             feh[rows], placement._subset(rng, rows), s)
         else:
             p = placement.place_by_posterior(grid, teff[rows], teff_err[rows], logl[rows],
                                              logl_err[rows], logg[rows], logg_err[rows], feh[rows],
-                                             feh_err[rows], rng, s)
+                                             feh_err[rows], placement._subset(rng, rows), s)
         redo = np.zeros(0, int)
         if name == "mass+stage":
             p, redo = _stage_contradicted_by_l(grid, p, rows, teff, logl, logl_err, s)
@@ -489,14 +489,22 @@ def signature_at(grid: TrackGrid, mass, z, eep, cfg: Config, reference=None) -> 
 
 
 def run_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
-              rng: np.random.Generator | None = None, reference=None) -> pd.DataFrame:
+              rng=None, reference=None, first_row: int = 0) -> pd.DataFrame:
     """The whole chain for a batch of validated rows; one output row per input row.
+
+    The placement draws are one uniform number per star fixed by (``scoring.seed``,
+    the row's place in the whole catalog, ``first_row`` + its place in the batch;
+    :class:`prioritize.stars.placement.RowUniforms`), so a star's numbers do not
+    depend on the batch size; ``rng`` (a ``numpy.random.Generator``) replaces them
+    where given.
 
     ``reference`` is a :class:`~prioritize.lithium.reference.ReferenceBaseline` (see
     :func:`load_baseline_reference`); None uses the built-in prior.  Missing values
     propagate as NaN by design, so numpy's floating-point warnings are silenced here;
     every row's ``status`` and ``note`` say what could not be computed."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        if rng is None:
+            rng = placement.RowUniforms.for_rows(cfg.scoring.seed, first_row, len(df))
         return _run_batch(df, cfg, grid, rng, reference)
 
 
@@ -520,7 +528,6 @@ def _without_rejected_values(df: pd.DataFrame, status: np.ndarray) -> pd.DataFra
 
 def _run_batch(df, cfg, grid, rng, reference):
     grid = grid or load_grid()
-    rng = rng or np.random.default_rng(cfg.scoring.seed)
     n = len(df)
     df = with_cluster_context(df.reset_index(drop=True), cfg)
     status = df["status"].to_numpy(object).copy()
@@ -1003,12 +1010,11 @@ def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     reference = load_baseline_reference(cfg)
     size = cfg.run.batch_size
     parts = []
-    for b, start in enumerate(range(0, max(len(df), 1), size)):
+    for start in range(0, max(len(df), 1), size):
         chunk = df.iloc[start:start + size]
         if len(chunk) == 0:
             break
-        rng = np.random.default_rng([cfg.scoring.seed, b])
-        parts.append(run_batch(chunk, cfg, grid, rng, reference))
+        parts.append(run_batch(chunk, cfg, grid, None, reference, first_row=start))
         if progress is not None:
             progress(min(start + size, len(df)), len(df))
     out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid, None, reference)
@@ -1018,13 +1024,11 @@ def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
 def rank_row(df: pd.DataFrame, cfg: Config, star_index: int, grid: TrackGrid | None = None) -> pd.Series:
     """The output row of ``df.iloc[star_index]`` exactly as :func:`rank_table` computes it.
 
-    Runs only the batch that holds the row, with that batch's random stream
-    (``default_rng([seed, batch_number])``), so cluster sequences, reference bins and
-    the placement draws are those of the full ranking; ``rank`` is NaN (the rank
-    number needs the whole catalog)."""
+    Runs only the batch that holds the row (the cluster sequences are fitted per
+    batch) with the rows' own placement draws, so every number is that of the full
+    ranking; ``rank`` is NaN (the rank number needs the whole catalog)."""
     size = cfg.run.batch_size
-    number = star_index // size
-    start = number * size
-    out = run_batch(df.iloc[start:start + size], cfg, grid or configured_grid(cfg),
-                    np.random.default_rng([cfg.scoring.seed, number]), load_baseline_reference(cfg))
+    start = (star_index // size) * size
+    out = run_batch(df.iloc[start:start + size], cfg, grid or configured_grid(cfg), None,
+                    load_baseline_reference(cfg), first_row=start)
     return out.iloc[star_index - start]

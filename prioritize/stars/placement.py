@@ -73,6 +73,49 @@ def empty_placement(n: int) -> Placement:
                      np.zeros(n, bool), np.full(n, "", dtype=object), np.full(n, np.nan))
 
 
+class RowUniforms:
+    """One uniform number per catalog row, fixed by (seed, the row's place in the whole
+    catalog): a star's placement draws do not depend on the batch it falls in or on
+    its neighbours.  Stands in for a ``numpy.random.Generator`` where the placement
+    functions draw (systematic resampling takes one uniform per star)."""
+
+    def __init__(self, values):
+        self.values = np.asarray(values, dtype=float)
+
+    @classmethod
+    def for_rows(cls, seed: int, first_row: int, n: int) -> "RowUniforms":
+        return cls(row_uniforms(seed, first_row + np.arange(n)))
+
+    def subset(self, idx) -> "RowUniforms":
+        return RowUniforms(self.values[np.asarray(idx, dtype=int)])
+
+    def uniform(self, size):
+        n = size[0] if isinstance(size, tuple) else size
+        if n != self.values.size:
+            raise ValueError(f"{n} draws asked of {self.values.size} rows")
+        return self.values.reshape((n,) + (tuple(size[1:]) if isinstance(size, tuple) else ()))
+
+
+def row_uniforms(seed: int, index) -> np.ndarray:
+    """Uniform [0, 1) numbers from the splitmix64 hash of (seed, row index): a
+    counter-based stream (Steele, Lea & Flood 2014, OOPSLA, "Fast splittable
+    pseudorandom number generators"), 53 bits per number."""
+    golden = np.uint64(0x9E3779B97F4A7C15)
+    # array arithmetic wraps modulo 2^64 silently (numpy scalars would warn)
+    key = np.array([int(seed) % 2**64], dtype=np.uint64) * np.array([0xD1B54A32D192ED03], dtype=np.uint64)
+    x = np.atleast_1d(np.asarray(index, dtype=np.uint64)) * golden + key
+    z = x + golden
+    z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    z = z ^ (z >> np.uint64(31))
+    return (z >> np.uint64(11)).astype(np.float64) * 2.0 ** -53
+
+
+def _subset(rng, idx):
+    """The draws of rows ``idx``: a per-row stream is cut to them, a Generator is shared."""
+    return rng.subset(idx) if isinstance(rng, RowUniforms) else rng
+
+
 def _resample(weights, n_samples, rng):
     """Systematic resampling of each row of ``weights`` (n, K) -> column indices (n, S)."""
     n, k = weights.shape
@@ -290,7 +333,7 @@ def _mass_stage_samples(placed, w, n_samples, rng, note, stage, nodes, observed,
         out = empty_placement(n)
         out.note = note
         return out
-    pick = _resample(w[idx], n_samples, rng)
+    pick = _resample(w[idx], n_samples, _subset(rng, idx))
     rows = idx[:, None]
 
     def at(values):
@@ -345,7 +388,7 @@ def _collect(placed, w, mass, z, eep, n_samples, rng, note, chi2_min) -> Placeme
         out = empty_placement(len(placed))
         out.note, out.chi2_min = note, chi2_min
         return out
-    cols = _resample(w[idx], n_samples, rng)
+    cols = _resample(w[idx], n_samples, _subset(rng, idx))
     rows = idx[:, None]
     return Placement(np.repeat(idx, n_samples), mass[rows, cols].ravel(), z[rows, cols].ravel(),
                      eep[rows, cols].ravel(), placed, note, chi2_min)
@@ -436,7 +479,7 @@ def place_by_posterior(grid: TrackGrid, teff, teff_err, logl, logl_err, logg, lo
             chi2_min[rows[part]] = best
             logw = -0.5 * chi2 + dense.log_prior[idx]
             logw -= logw.max(axis=1, keepdims=True)
-            pick = _resample(np.exp(logw), n_samples, rng)
+            pick = _resample(np.exp(logw), n_samples, _subset(rng, rows[part]))
             samples[rows[part]] = np.take_along_axis(idx, pick, axis=1)
     placed = np.isfinite(chi2_min) & (chi2_min <= CHI2_LIMIT)
     far = np.isfinite(chi2_min) & ~placed
