@@ -14,7 +14,6 @@ track of the median sample -> priority.
 
 from __future__ import annotations
 
-import warnings
 
 import numpy as np
 import pandas as pd
@@ -22,7 +21,7 @@ import pandas as pd
 from . import engulfment, exposure, rotation, score, spectra
 from .catalog import status as st
 from .config import Config, with_overrides
-from .errors import PrioritizeError, PrioritizeWarning
+from .errors import PrioritizeError
 from .lithium import baseline, lifetime
 from .constants import M_JUP_MSUN, M_SUN_G, R_SUN_CM, Z_PROTOSOLAR
 from .lithium.enrichment import (GAS_KINDS, PlanetComposition, enriched_abundance, mjup_to_msun,
@@ -72,7 +71,7 @@ OUTPUT_COLUMNS = [
     "p_engulfed_history", "planets_swept", "capture_radius_now_rsun", "capture_radius_then_rsun",
     "p_background", "p_engulfed",
     "ew_base_mA", "ew_enriched_mA", "delta_ew_mA", "line_fwhm_A", "snr_needed", "r_c_mag",
-    "exposure_s", "exposure_flag", "snr_at_exposure", "overhead_s", "time_on_target_s",
+    "r_c_source", "exposure_s", "exposure_flag", "snr_at_exposure", "overhead_s", "time_on_target_s",
     "delta_ew_measurable", "p_measured", "instrument", "lines_to_measure", "coverage_missing",
     "placement_method", "teff_source", "logl_source", "feh_source", "baseline_source", "baseline_n",
     "teff_zams_k", "a_li_main_sequence", "dilution_dex", "m_planet_msun", "chi2_best",
@@ -673,7 +672,7 @@ def _run_batch(df, cfg, grid, rng, reference):
     if "age_samples_myr" in res:
         ages[idx] = res["age_samples_myr"]
     _rotation_columns(out, df, params, ages, cfg)
-    _observing_columns(out, df, model_logg, cfg)
+    _observing_columns(out, df, model_logg, cfg, params["ebv_used"].to_numpy(float))
     out["p_engulfed"] = score.engulfed_posterior(out["p_engulfed_history"],
                                                  out["rotation_likelihood_ratio"])
     out["priority"] = score.detections_per_hour(out["p_engulfed"], out["p_detect"], out["p_measured"],
@@ -882,7 +881,7 @@ class _PerClusterSequence:
         return period, spread
 
 
-def _observing_columns(out, df, model_logg, cfg):
+def _observing_columns(out, df, model_logg, cfg, ebv):
     """Li 6708 line strength, S/N needed, exposure and the lines to take (:mod:`prioritize.spectra`,
     :mod:`prioritize.exposure`)."""
     inst = load_instrument(cfg.observing.instrument)
@@ -903,11 +902,13 @@ def _observing_columns(out, df, model_logg, cfg):
     snr = spectra.snr_needed(np.where(delta > 0, delta, np.nan), fwhm, inst.pixel_width_angstrom(),
                              k_sigma=cfg.observing.k_sigma)
     snr = np.fmax(snr, cfg.observing.min_snr_per_pixel)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", PrioritizeWarning)  # colour-range warnings: noted per row below
-        r_gaia = exposure.r_c_from_gaia(_column(df, "g_mag"), _column(df, "bp_rp"))
-        r_v = exposure.r_c_from_v(_column(df, "v_mag"), _column(df, "b_v"))
-    r_c = np.where(np.isfinite(r_gaia), r_gaia, r_v)
+    bp_rp = _column(df, "bp_rp")
+    r_c, r_c_source = exposure.r_c_from_catalog(
+        r_mag=_column(df, "r_mag"), g_mag=_column(df, "g_mag"),
+        bp_rp=np.where(np.isfinite(bp_rp), bp_rp, _column(df, "bp_mag") - _column(df, "rp_mag")),
+        v_mag=_column(df, "v_mag"), b_v=_column(df, "b_v"), teff=teff, logg=logg, feh=feh,
+        ebv=ebv, giant=logg < 3.5)
+    out["r_c_source"] = r_c_source
     plan = exposure.plan_exposure(inst, snr, r_c, a_v=0.0, airmass=cfg.observing.airmass,
                                   extinction_coeff=cfg.observing.extinction_coeff)
     out["ew_base_mA"], out["ew_enriched_mA"], out["delta_ew_mA"] = ew_base, ew_new, delta
@@ -941,8 +942,13 @@ def _observing_columns(out, df, model_logg, cfg):
                                    f"x {cfg.observing.cool_measured_factor:g}", ""))
     no_mag = computed & ~np.isfinite(r_c)
     out["note"] = _append(out["note"].to_numpy(object),
-                          np.where(no_mag, "no magnitude for an exposure estimate (give g_mag+bp_rp "
-                                           "or v_mag+b_v): not ranked by detections per hour", ""))
+                          np.where(no_mag, "no magnitude for an exposure estimate (give g_mag or v_mag, "
+                                           "with its colour or a Teff the colour-Teff relations cover): "
+                                           "not ranked by detections per hour", ""))
+    from_teff = computed & (np.char.find(r_c_source.astype(str), "from Teff") >= 0)
+    out["note"] = _append(out["note"].to_numpy(object),
+                          np.where(from_teff, np.char.add("R_C for the exposure from ",
+                                                          r_c_source.astype(str)).astype(object), ""))
 
 
 def _mode(stage_index):

@@ -146,6 +146,65 @@ def r_c_from_gaia(g, bp_rp):
     return g - np.polynomial.polynomial.polyval(bp_rp, _G_MINUS_RC)
 
 
+R_C_SOURCES = ("catalog R_C", "G+BP-RP (Riello et al. 2021)", "V+B-V",
+               "G+BP-RP from Teff (Casagrande et al. 2021)", "V+B-V from Teff (Casagrande et al. 2010)",
+               "V+B-V from Teff (Alonso et al. 1999)", "")
+"""How :func:`r_c_from_catalog` found R_C, in its order of preference ('' = no magnitude)."""
+
+
+def r_c_from_catalog(*, r_mag, g_mag, bp_rp, v_mag, b_v, teff, logg, feh, ebv, giant):
+    """Cousins R_C for the exposure from whatever photometry a star has.
+
+    In order: a measured R_C; G with the observed BP-RP (:func:`r_c_from_gaia`); V with
+    the observed B-V (:func:`r_c_from_v`); then, without the colour, G or V with the
+    colour the star's Teff implies -- (BP-RP)_0 from Casagrande et al. 2021
+    (:func:`~prioritize.stars.photometry.bp_rp_from_teff`) or (B-V)_0 from Casagrande
+    et al. 2010 (dwarfs, subgiants) or Alonso et al. 1999 (giants)
+    (:func:`~prioritize.stars.photometry.b_v_from_teff`), reddened by E(B-V) (Babusiaux
+    et al. 2018 for Gaia; E(B-V) itself for B-V) to the observed colour.
+
+    Parameters
+    ----------
+    r_mag, g_mag, bp_rp, v_mag, b_v : array_like
+        Observed photometry (mag); NaN where absent.
+    teff, logg, feh : array_like
+        The star's adopted parameters (K, dex, dex).
+    ebv : array_like
+        E(B-V) (mag) used for the star.
+    giant : array_like of bool
+        Giants take the Alonso et al. (1999) B-V relation.
+
+    Returns
+    -------
+    r_c : ndarray
+        R_C (mag), NaN where nothing gives it.
+    source : ndarray of str
+        The entry of :data:`R_C_SOURCES` used.
+    """
+    from .stars.photometry import b_v_from_teff, bp_rp_from_teff, gaia_extinction_from_intrinsic
+
+    arrays = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in
+                                   (r_mag, g_mag, bp_rp, v_mag, b_v, teff, logg, feh, ebv)))
+    r_mag, g_mag, bp_rp, v_mag, b_v, teff, logg, feh, ebv = arrays
+    giant = np.broadcast_to(np.asarray(giant, dtype=bool), r_mag.shape)
+    ebv0 = np.where(np.isfinite(ebv), ebv, 0.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PrioritizeWarning)   # colour ranges: the source says which relation
+        from_gaia = r_c_from_gaia(g_mag, bp_rp)
+        from_v = r_c_from_v(v_mag, b_v)
+        bp_rp0 = bp_rp_from_teff(teff, np.where(np.isfinite(logg), logg, 4.0), feh).value
+        reddening = gaia_extinction_from_intrinsic(ebv0, bp_rp0)
+        from_g_teff = r_c_from_gaia(g_mag, bp_rp0 + reddening.a_bp - reddening.a_rp)
+        from_v_teff = r_c_from_v(v_mag, b_v_from_teff(teff, feh, giant).value + ebv0)
+    choices = [r_mag, from_gaia, from_v, from_g_teff, from_v_teff, from_v_teff]
+    usable = [np.isfinite(c) for c in choices]
+    usable[4] = usable[4] & ~giant
+    usable[5] = usable[5] & giant
+    pick = np.select(usable, np.arange(len(choices)), default=len(choices))
+    value = np.select(usable, choices, default=np.nan)
+    return value, np.array(R_C_SOURCES, dtype=object)[pick]
+
+
 def collecting_area_cm2(diameter, central_obstruction=0.0):
     """Unobstructed collecting area pi/4 D^2 (1 - epsilon^2), in cm^2.
 

@@ -203,3 +203,62 @@ def test_missing_key_and_bad_files(tmp_path):
         load_instrument(broken)
     with pytest.raises(ConfigError, match="does not exist"):
         load_instrument(tmp_path / "absent.toml")
+
+
+# Stars with a measured B-V and a spectroscopic Teff (values from memory): the Sun
+# (B-V 0.653, Ramirez et al. 2012, ApJ 752, 5; Teff 5772 K, IAU 2015 B3), 18 Sco (0.65,
+# 5810 K), alpha Cen A (0.71, 5790 K, [Fe/H] +0.2), tau Cet (0.72, 5344 K, -0.50),
+# epsilon Eri (0.88, 5084 K, -0.09), Procyon (0.42, 6530 K, logg 4.0), Pollux (1.00,
+# 4860 K, logg 2.9, +0.1) and Arcturus (1.23, 4286 K, logg 1.66, -0.52).
+V_ONLY_STARS = [  # B-V, Teff, logg, [Fe/H]
+    (0.653, 5772.0, 4.44, 0.00), (0.65, 5810.0, 4.45, 0.03), (0.71, 5790.0, 4.30, 0.20),
+    (0.72, 5344.0, 4.50, -0.50), (0.88, 5084.0, 4.60, -0.09), (0.42, 6530.0, 4.00, -0.02),
+    (1.00, 4860.0, 2.90, 0.10), (1.23, 4286.0, 1.66, -0.52),
+]
+V_ONLY_EXPOSURE_TOLERANCE = 0.05   # fractional; the required agreement for V-only catalogs
+
+
+def test_v_only_exposures_agree_with_v_and_b_v():
+    """V + Teff (B-V from the colour-Teff relations) against V + the measured B-V: the
+    unclipped exposure for S/N 100 at V = 12 on the 4-m preset agrees within 5%."""
+    from prioritize.instruments import load_instrument
+
+    b_v, teff, logg, feh = (np.array(c) for c in zip(*V_ONLY_STARS))
+    v = np.full(b_v.size, 12.0)
+    nan = np.full(b_v.size, np.nan)
+    common = dict(r_mag=nan, g_mag=nan, bp_rp=nan, v_mag=v, teff=teff, logg=logg, feh=feh,
+                  ebv=np.zeros(b_v.size), giant=logg < 3.5)
+    r_measured, source_measured = exposure.r_c_from_catalog(b_v=b_v, **common)
+    r_from_teff, source_teff = exposure.r_c_from_catalog(b_v=nan, **common)
+    assert set(source_measured) == {"V+B-V"}
+    assert set(source_teff) == {"V+B-V from Teff (Casagrande et al. 2010)",
+                                "V+B-V from Teff (Alonso et al. 1999)"}
+    inst = load_instrument("echelle-4m")
+    area = inst.collecting_area_cm2
+    kwargs = dict(read_noise=inst.read_noise_e, dark_rate=inst.dark_current_e_per_s,
+                  n_pix_spatial=inst.spatial_pixels)
+    t_measured = exposure.exposure_for_snr(100.0, r_measured, area, inst.throughput_6708,
+                                           inst.pixel_width_angstrom(), **kwargs)
+    t_teff = exposure.exposure_for_snr(100.0, r_from_teff, area, inst.throughput_6708,
+                                       inst.pixel_width_angstrom(), **kwargs)
+    ratio = t_teff / t_measured
+    print("exposure ratio V+Teff / V+(B-V):", np.round(ratio, 4))
+    assert np.all(np.abs(ratio - 1.0) < V_ONLY_EXPOSURE_TOLERANCE), ratio
+
+
+def test_a_g_only_star_gets_its_colour_from_teff():
+    """G + Teff: BP-RP from Casagrande et al. (2021), reddened; it reproduces the R_C
+    of the observed colour when that colour is the one the relation gives."""
+    from prioritize.stars.photometry import bp_rp_from_teff, gaia_extinction_from_intrinsic
+
+    teff, logg, feh, ebv = np.array([5000.0, 6000.0]), np.array([3.0, 4.3]), np.zeros(2), np.array([0.1, 0.0])
+    x0 = bp_rp_from_teff(teff, logg, feh).value
+    law = gaia_extinction_from_intrinsic(ebv, x0)
+    nan = np.full(2, np.nan)
+    observed, _ = exposure.r_c_from_catalog(r_mag=nan, g_mag=np.array([11.0, 12.0]), bp_rp=x0 + law.a_bp - law.a_rp,
+                                            v_mag=nan, b_v=nan, teff=teff, logg=logg, feh=feh, ebv=ebv,
+                                            giant=logg < 3.5)
+    derived, source = exposure.r_c_from_catalog(r_mag=nan, g_mag=np.array([11.0, 12.0]), bp_rp=nan, v_mag=nan,
+                                                b_v=nan, teff=teff, logg=logg, feh=feh, ebv=ebv, giant=logg < 3.5)
+    np.testing.assert_allclose(derived, observed, atol=1e-9)
+    assert set(source) == {"G+BP-RP from Teff (Casagrande et al. 2021)"}

@@ -209,9 +209,13 @@ def test_missing_star_ids_come_from_the_row_number(tmp_path):
 
 def test_two_columns_for_one_canonical_name_is_an_error_naming_both(tmp_path):
     path = tmp_path / "c.csv"
-    path.write_text("Teff,teff_gspphot\n5000,5100\n")
-    with pytest.raises(CatalogError, match=r"c\.csv.*'Teff' and 'teff_gspphot' both stand for teff_k"):
+    path.write_text("Teff,T_eff\n5000,5100\n")
+    with pytest.raises(CatalogError, match=r"c\.csv.*'Teff' and 'T_eff' both stand for teff_k"):
         read_catalog(path)
+    path.write_text("Teff,teff_gspphot\n5000,5100\n")          # Gaia's value gives way to the spectroscopic one
+    table, messages = read_catalog(path)
+    assert table["teff_k"].iloc[0] == 5000 and table["teff_gspphot"].iloc[0] == 5100
+    assert "column 'teff_gspphot' not used: 'Teff' is read as teff_k" in messages
     table, messages = read_catalog(path, {"teff_gspphot": "teff_k"})
     assert table["teff_k"].iloc[0] == 5100 and table["Teff"].iloc[0] == 5000
     assert any("not read as teff_k" in m for m in messages)

@@ -115,7 +115,9 @@ def _magnitude(name: str, band: str, aliases: tuple[str, ...]) -> ColumnSpec:
 _INPUT_SPECS: tuple[ColumnSpec, ...] = (
     ColumnSpec("star_id", TEXT, "", "star identifier, unique in the catalog "
                "(made from the row number, row1, row2, ..., when absent)",
-               aliases=("source_id", "id", "name", "star", "starid", "star_name", "object", "objid")),
+               aliases=("designation", "source_id", "id", "name", "star", "starid", "star_name", "object",
+                        "objid", "apogee_id", "sobject_id", "obsid", "cname", "tic", "tic_id", "kic",
+                        "kic_id", "epic")),
     ColumnSpec("ra_deg", FLOAT, "deg", "right ascension (ICRS)", lo=0.0, hi=360.0,
                aliases=("ra", "radeg", "ra_icrs", "raj2000", "_raj2000", "ra_j2000"),
                hint=(-180.0, 0.0, "looks like RA in -180..180 deg (give RA in 0..360 deg)")),
@@ -137,34 +139,48 @@ _INPUT_SPECS: tuple[ColumnSpec, ...] = (
                             lo=0.0, hi=1000.0,
                             aliases=("parallax", "plx", "varpi", "parallax_gaia"))),
     ColumnSpec("distance_pc", FLOAT, "pc", "distance", lo=0.0, lo_inclusive=False,
-               aliases=("distance", "dist", "dist_pc", "d_pc", "r_med_geo", "rgeo")),
+               aliases=("distance", "dist", "dist_pc", "d_pc", "r_med_geo", "rgeo", "distance_gspphot")),
     *_with_error(ColumnSpec("ebv", FLOAT, "mag", "colour excess E(B-V) towards the star",
                             lo=0.0, hi=10.0,
                             aliases=("e(b-v)", "ebmv", "reddening"))),
+    ColumnSpec("ebp_rp", FLOAT, "mag", "colour excess E(BP-RP) towards the star (used for E(B-V) "
+               "when ebv is not given)", lo=0.0, hi=15.0,
+               aliases=("ebpminrp_gspphot", "e(bp-rp)", "ebpminrp")),
+    ColumnSpec("a_g_ext", FLOAT, "mag", "extinction A_G in the Gaia G band (used for E(B-V) when "
+               "neither ebv nor ebp_rp is given)", lo=0.0, hi=20.0,
+               aliases=("ag_gspphot", "a_g_val", "ag", "a_g_extinction")),
     *_with_error(ColumnSpec("teff_k", FLOAT, "K", "effective temperature", lo=2000.0, hi=50000.0,
-                            aliases=("teff", "t_eff", "teff_gspphot", "teff_val", "teff_spec"),
+                            aliases=("teff", "t_eff", "teff_gspphot", "teff_val", "teff_spec", "teff_spec_k",
+                                     "teff_sp"),
                             hint=(3.3, 4.8, "looks like log Teff; give Teff in K"))),
     *_with_error(ColumnSpec("logg", FLOAT, "dex(cm s-2)", "surface gravity log10(g / cm s^-2)",
-                            lo=-1.0, hi=6.0, aliases=("log_g", "logg_gspphot", "logg_spec"))),
+                            lo=-1.0, hi=6.0, aliases=("log_g", "logg_gspphot", "logg_spec", "logg_sp"))),
     *_with_error(ColumnSpec("logl_lsun", FLOAT, "dex(Lsun)", "luminosity log10(L / Lsun)",
                             lo=-6.0, hi=8.0, aliases=("logl", "log_l", "loglum", "log_lum"))),
     *_with_error(ColumnSpec("feh", FLOAT, "dex", "metallicity [Fe/H] (or [M/H])", lo=-5.0, hi=1.5,
-                            aliases=("[fe/h]", "fe_h", "fe/h", "mh", "[m/h]", "m_h", "mh_gspphot",
+                            aliases=("[fe/h]", "fe_h", "fe/h", "feh_spec", "mh", "[m/h]", "m_h", "mh_gspphot",
                                      "metallicity"))),
     *_with_error(ColumnSpec("mass_msun", FLOAT, "Msun", "stellar mass", lo=0.0, hi=100.0,
                             lo_inclusive=False, aliases=("mass", "m", "mstar", "m_star", "mass_flame"))),
     ColumnSpec("stage", TEXT, "", "evolutionary stage (main_sequence, turnoff, subgiant, "
                "lower_giant_branch, upper_giant_branch, red_clump, or a short form such as rgb, rc)",
-               aliases=("evol_stage", "evstage", "evolutionary_stage", "phase")),
+               aliases=("evol_stage", "evstage", "evolutionary_stage", "phase", "evstate", "evolstate",
+                        "evol_state", "evo_state", "es")),
     *_with_error(ColumnSpec("prot_d", FLOAT, "d", "rotation period", lo=0.0, lo_inclusive=False,
                             aliases=("prot", "period", "p_rot", "rotation_period"))),
     *_with_error(ColumnSpec("vsini_kms", FLOAT, "km/s", "projected rotational velocity v sin i",
                             lo=0.0, aliases=("vsini", "v_sini", "vsin_i", "vsini_km_s"))),
     *_with_error(ColumnSpec("a_li", FLOAT, "dex", "measured lithium abundance A(Li) = 12 + log10(N_Li/N_H)",
-                            lo=-1.0, hi=5.0, aliases=("ali", "a(li)", "a_li_lte", "a_li_nlte"))),
+                            lo=-1.0, hi=5.0, aliases=("ali", "a(li)", "a_li_lte", "a_li_nlte", "li1", "a_li_6708",
+                                                  "lithium"))),
     ColumnSpec("a_li_is_limit", BOOL, "", "true when a_li is an upper limit "
-               "(accepts true/false, yes/no, 1/0, '<' for a limit, empty for a detection)",
-               aliases=("l_ali", "ali_limit", "l_a(li)", "l_a_li", "a_li_limit", "ali_upper_limit")),
+               "(accepts true/false, yes/no, 1/0, '<' for a limit, empty for a detection; a survey flag "
+               "column such as flag_a_li reads 0 as a detection, 1 as an upper limit and other "
+               "codes as an unusable A(Li))",
+               aliases=("l_ali", "ali_limit", "l_a(li)", "l_a_li", "a_li_limit", "ali_upper_limit",
+                        "li_lim", "lim_li", "a_li_lim", "lim_a_li", "lim_li1", "li_limit",
+                        "upper_li", "li_upper_limit", "flag_a_li", "flag_ali", "flag_li",
+                        "a_li_flag", "li_flag", "li_upper")),
     ColumnSpec("cluster", TEXT, "", "cluster name (rows of one cluster share an isochrone)",
                aliases=("cluster_name", "cl", "clust")),
     ColumnSpec("cluster_age_gyr", FLOAT, "Gyr", "cluster age", lo=0.0, hi=14.0, lo_inclusive=False,
@@ -201,6 +217,49 @@ def _build_alias_index() -> dict[str, str]:
 
 ALIASES: dict[str, str] = _build_alias_index()
 """Lower-case spelling -> canonical input name (canonical names included)."""
+
+_SECONDARY_BASES = (
+    # identifiers of one survey, used when the catalog has no other identifier
+    "source_id", "apogee_id", "sobject_id", "obsid", "cname", "tic", "tic_id", "kic", "kic_id", "epic",
+    # Gaia DR3 astrophysical parameters from BP/RP spectra (Andrae et al. 2023), used when
+    # no spectroscopic value is given
+    "teff_gspphot", "logg_gspphot", "mh_gspphot",
+    # [M/H] stands in for [Fe/H] only when the catalog has no [Fe/H]
+    "mh", "[m/h]", "m_h", "metallicity",
+)
+SECONDARY_SPELLINGS: frozenset[str] = frozenset(
+    spelling for base in _SECONDARY_BASES
+    for spelling in (base, *(f.format(base) for f in ("e_{}", "{}_err", "{}_error", "err_{}", "sigma_{}")))
+    if spelling in ALIASES)
+"""Spellings that give way to any other spelling of the same column: a Gaia DR3
+export carries both ``designation`` and ``source_id``; an APOGEE table both ``FE_H``
+and ``M_H``; a spectroscopic table merged with Gaia both ``TEFF`` and ``teff_gspphot``.
+The other spelling is read and this one passes through, with a message."""
+
+CONDITIONAL_SPELLINGS: dict[str, tuple[str, str, str]] = {
+    "distance_gspphot": ("distance_pc", "parallax_mas",
+                         "the parallax gives the distance (distance_gspphot is a model distance "
+                         "from the BP/RP spectrum, Andrae et al. 2023)"),
+}
+"""Spelling -> (canonical column, column that makes it unused, why): read only when the
+other column is absent."""
+
+IGNORED_SPELLINGS: dict[str, str] = {
+    "li_fe": "[Li/Fe] is not read: give A(Li) = [Li/Fe] + [Fe/H] + the survey's solar A(Li) as a_li",
+    "[li/fe]": "[Li/Fe] is not read: give A(Li) = [Li/Fe] + [Fe/H] + the survey's solar A(Li) as a_li",
+    "ew_li": "equivalent widths are not read: give A(Li) as a_li",
+    "ewli": "equivalent widths are not read: give A(Li) as a_li",
+    "ew_li6708": "equivalent widths are not read: give A(Li) as a_li",
+    "teff_gspspec": "GSP-Spec parameters are not read; map it with --columns teff_gspspec=teff_k to use it",
+    "logg_gspspec": "GSP-Spec parameters are not read; map it with --columns logg_gspspec=logg to use it",
+    "mh_gspspec": "GSP-Spec parameters are not read; map it with --columns mh_gspspec=feh to use it",
+    "radius_gspphot": "radius is derived from L and Teff (or the asteroseismic scaling relations), not read",
+    "lum_flame": "map it with --columns to logl_lsun after taking log10 (FLAME gives L in L_sun, not log L)",
+    "age_flame": "ages are computed from the tracks, not read",
+    "age": "ages are computed from the tracks, not read",
+}
+"""Lower-case spelling of a column that looks usable but is not read, and why (the
+reader says so)."""
 
 
 def recognise(column: str) -> str | None:
@@ -353,6 +412,8 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("snr_needed", FLOAT, "", "S/N per pixel to see delta_ew_mA at k sigma (Cayrel 1988), at least "
          "observing.min_snr_per_pixel"),
     _out("r_c_mag", FLOAT, "mag", "Cousins R from the catalog photometry"),
+    _out("r_c_source", TEXT, "", "how r_c_mag was found: catalog R_C, G+BP-RP, V+B-V, or G/V with the "
+         "colour the Teff implies (Casagrande et al. 2021, 2010; Alonso et al. 1999)"),
     _out("exposure_s", FLOAT, "s", "exposure to reach snr_needed (clipped to the instrument's floor/ceiling)"),
     _out("exposure_flag", TEXT, "", "ok, floor or ceiling"),
     _out("snr_at_exposure", FLOAT, "", "S/N per pixel reached in exposure_s"),

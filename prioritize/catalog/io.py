@@ -41,7 +41,8 @@ import numpy as np
 import pandas as pd
 
 from prioritize import CAUTION, __version__
-from prioritize.catalog.columns import (INPUT_COLUMNS, OUTPUT_COLUMNS, TEXT, check_column_map,
+from prioritize.catalog.columns import (CONDITIONAL_SPELLINGS, IGNORED_SPELLINGS, INPUT_COLUMNS,
+                                        OUTPUT_COLUMNS, SECONDARY_SPELLINGS, TEXT, check_column_map,
                                         recognise, row_number_ids)
 from prioritize.errors import CatalogError, ConfigError
 
@@ -182,6 +183,7 @@ def read_catalog(path: str | os.PathLike,
         raise CatalogError("has no data rows", path=str(path))
     table = _normalise(raw.rename(columns=renames), id_column="star_id")
     messages += _convert_units(table, {renames.get(c, c): u for c, u in units.items()}, path)
+    messages += _survey_conventions(table, {v: k for k, v in renames.items()})
     messages += _ensure_star_id(table)
     return table, messages
 
@@ -260,6 +262,7 @@ def map_columns(names: list[str], column_map: dict[str, str],
         messages.append(f"column {found!r} read as {target}{_unit_words(target)} (column map)")
     mapped_by_user = {found for found, _ in owner.values()}
     passed_through = []
+    candidates: dict[str, list[str]] = {}
     for name in names:
         if name in mapped_by_user:
             continue
@@ -271,26 +274,47 @@ def map_columns(names: list[str], column_map: dict[str, str],
                                 "(its name is taken by an output column)")
             else:
                 passed_through.append(name)
+                why = IGNORED_SPELLINGS.get(name.strip().lower())
+                if why is not None:
+                    messages.append(f"column {name!r} not used: {why}")
             continue
+        candidates.setdefault(target, []).append(name)
+    present = set(owner) | set(candidates)
+    for target, group in candidates.items():
+        primary = [n for n in group if n.strip().lower() not in SECONDARY_SPELLINGS]
         if target in owner:
-            other, by_user = owner[target]
-            if by_user and name != target:
+            other, _by_user = owner[target]
+            for name in group:
+                if name == target:
+                    raise CatalogError(f"the file already has a column {name!r}, the name the column "
+                                       f"map gives {other!r}; rename or drop one of them",
+                                       path=where, column=name)
                 passed_through.append(name)
                 messages.append(f"column {name!r} not read as {target}: the column map reads "
                                 f"{other!r} as {target}")
-                continue
-            if by_user:
-                raise CatalogError(f"the file already has a column {name!r}, the name the column "
-                                   f"map gives {other!r}; rename or drop one of them",
-                                   path=where, column=name)
+            continue
+        if len(primary) > 1:
             raise CatalogError(
-                f"columns {other!r} and {name!r} both stand for {target}; choose one with the "
-                f"column map (e.g. --columns '{other}={target}'), or rename or drop the other",
-                path=where, column=name)
-        owner[target] = (name, False)
-        if name != target:
-            renames[name] = target
-            messages.append(f"column {name!r} read as {target}{_unit_words(target)}")
+                f"columns {primary[0]!r} and {primary[1]!r} both stand for {target}; choose one with the "
+                f"column map (e.g. --columns '{primary[0]}={target}'), or rename or drop the other",
+                path=where, column=primary[1])
+        if primary:
+            chosen = primary[0]
+        else:       # only secondary spellings: the first in the contract's order of spellings
+            chosen = min(group, key=lambda n: _spelling_rank(target, n))
+        conditional = CONDITIONAL_SPELLINGS.get(chosen.strip().lower())
+        if conditional is not None and conditional[1] in present:
+            passed_through.append(chosen)
+            messages.append(f"column {chosen!r} not used: {conditional[2]}")
+            continue
+        for name in group:
+            if name != chosen:
+                passed_through.append(name)
+                messages.append(f"column {name!r} not used: {chosen!r} is read as {target}")
+        owner[target] = (chosen, False)
+        if chosen != target:
+            renames[chosen] = target
+            messages.append(f"column {chosen!r} read as {target}{_unit_words(target)}")
     if passed_through:
         messages.append("kept unchanged (not a known column): " + ", ".join(passed_through))
     return renames, messages
@@ -324,6 +348,13 @@ def parse_column_option(items: list[str] | tuple[str, ...] | None) -> dict[str, 
                                   "give it once")
             mapping[source] = target
     return check_column_map(mapping)
+
+
+def _spelling_rank(target: str, name: str) -> int:
+    spec = INPUT_COLUMNS[target]
+    spellings = [a.lower() for a in (spec.name, *spec.aliases)]
+    key = name.strip().lower()
+    return spellings.index(key) if key in spellings else len(spellings)
 
 
 def _unit_words(name: str) -> str:
@@ -635,6 +666,77 @@ def _convert_units(table: pd.DataFrame, units: dict, path: Path) -> list[str]:
                                "the column map", path=str(path), column=name) from exc
         table[name] = pd.to_numeric(table[name], errors="coerce") * factor
         messages.append(f"column {name} converted from {unit} to {spec.unit}")
+    return messages
+
+
+# Spellings of an evolutionary-state column that may hold the numeric codes of the
+# asteroseismic classifications: 1 = red giant branch, 2 = core-helium burning (clump),
+# 0 or -1 = unclassified (Elsworth et al. 2019, MNRAS 489, 4641; Yu et al. 2018, ApJS
+# 236, 42 -- code convention from memory).
+NUMERIC_STAGE_SPELLINGS = frozenset({"evstate", "evolstate", "evol_state", "evo_state", "es", "phase"})
+_NUMERIC_STAGE_CODES = {1: "rgb", 2: "rc", 0: None, -1: None}
+# Gaia DR3 astrophysical parameters come with 16th and 84th percentiles, not an error.
+_PERCENTILE_ERRORS = {"teff_gspphot": "teff_k_err", "logg_gspphot": "logg_err", "mh_gspphot": "feh_err",
+                      "distance_gspphot": None}
+
+
+def _survey_conventions(table: pd.DataFrame, source: dict[str, str]) -> list[str]:
+    """Survey habits turned into the canonical form (in place); ``source`` maps a
+    canonical name to the file's spelling it was read from.
+
+    - a numeric evolutionary-state code (``evstate`` 1/2/0) -> rgb / rc / missing;
+    - a survey flag column read as ``a_li_is_limit`` (``flag_a_li``: 0 detection,
+      1 upper limit, other codes unusable -> that A(Li) is not used);
+    - ``<1.2`` inside the A(Li) column -> 1.2 and an upper limit;
+    - Gaia DR3 ``*_gspphot_lower``/``_upper`` percentiles -> a 1-sigma error of half their span.
+    """
+    messages = []
+    stage_from = source.get("stage", "stage").strip().lower()
+    if "stage" in table.columns and stage_from in NUMERIC_STAGE_SPELLINGS:
+        numbers = pd.to_numeric(table["stage"], errors="coerce")
+        coded = numbers.notna() & numbers.isin(list(_NUMERIC_STAGE_CODES))
+        if coded.any():
+            values = table["stage"].astype(object).copy()
+            values[coded] = numbers[coded].astype(int).map(_NUMERIC_STAGE_CODES)
+            table["stage"] = values.where(values.notna(), np.nan)
+            messages.append(f"column {source.get('stage', 'stage')!r}: numeric evolutionary-state codes "
+                            "read as 1 = red giant branch, 2 = red clump (core helium burning), "
+                            f"0/-1 = unclassified ({int(coded.sum())} rows)")
+    flag_from = source.get("a_li_is_limit", "").strip().lower()
+    if "a_li_is_limit" in table.columns and flag_from.startswith("flag"):
+        codes = pd.to_numeric(table["a_li_is_limit"], errors="coerce")
+        unusable = codes.notna() & ~codes.isin([0, 1])
+        table["a_li_is_limit"] = (codes == 1).astype(object).where(codes.notna(), np.nan)
+        if unusable.any():
+            if "a_li" in table.columns:
+                table.loc[unusable, "a_li"] = np.nan
+            messages.append(f"column {source['a_li_is_limit']!r}: 0 read as a detection, 1 as an upper "
+                            f"limit; {int(unusable.sum())} rows with another flag value have their "
+                            "A(Li) not used")
+    if "a_li" in table.columns and not pd.api.types.is_numeric_dtype(table["a_li"].dtype):
+        text = table["a_li"].astype(str).str.strip()
+        limit = text.str.startswith("<") & table["a_li"].notna()
+        if limit.any():
+            values = table["a_li"].astype(object).copy()
+            values[limit] = text[limit].str.lstrip("<").str.strip()   # validation makes them numbers
+            table["a_li"] = values
+            flags = (table["a_li_is_limit"].astype(object) if "a_li_is_limit" in table.columns
+                     else pd.Series(np.nan, index=table.index, dtype=object))
+            flags[limit] = True
+            table["a_li_is_limit"] = flags
+            messages.append(f"column {source.get('a_li', 'a_li')!r}: {int(limit.sum())} values written "
+                            "'<x' read as upper limits x")
+    lower = {c.lower(): c for c in table.columns}
+    for spelling, err in _PERCENTILE_ERRORS.items():
+        canonical = recognise(spelling)
+        if source.get(canonical, "").strip().lower() != spelling:
+            continue
+        lo, hi = lower.get(f"{spelling}_lower"), lower.get(f"{spelling}_upper")
+        if err is None or lo is None or hi is None or err in table.columns:
+            continue
+        span = pd.to_numeric(table[hi], errors="coerce") - pd.to_numeric(table[lo], errors="coerce")
+        table[err] = 0.5 * span.where(span >= 0)
+        messages.append(f"{err} = half the span of {lo} and {hi} (16th to 84th percentile)")
     return messages
 
 

@@ -135,8 +135,13 @@ def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
             out[name] = _check_limit_flag(out[name], notes)
 
     have = _Available(out, context)
-    nothing = placement_routes(have.table, have.params) == ROUTE_NONE
+    routes = placement_routes(have.table, have.params)
+    nothing = routes == ROUTE_NONE
     notes.add(nothing, status.MISSING_INPUTS, _missing_text(have, nothing))
+    unused_mass = have.mass & ~have.stage & ~nothing
+    notes.add(unused_mass, None, np.array(
+        [f"mass_msun given without a stage: not used (placed by {r}); give a stage column "
+         "(e.g. evstate, RGB/RC) to place by mass" for r in routes[unused_mass]], dtype=object))
     out["status"] = pd.array(notes.status, dtype="str")
     out["note"] = pd.array(notes.note, dtype="str")
     return out

@@ -55,6 +55,7 @@ def _read_targets(path: Path, priority_column: Optional[str]):
     from ..catalog.io import read_table
 
     table, _metadata = read_table(path)
+    table = _canonical_positions(table)
     needed = ["star_id", "ra_deg", "dec_deg"] + ([priority_column] if priority_column else [])
     missing = [c for c in needed if c not in table.columns]
     if missing:
@@ -66,6 +67,24 @@ def _read_targets(path: Path, priority_column: Optional[str]):
         status = table["status"].astype(str).str.strip().str.lower()
         skip[(status != OK).to_numpy()] = "status_not_ok"
     return table, numbers, skip
+
+
+def _canonical_positions(table):
+    """The identifier and coordinates under their canonical names when the table spells
+    them as a catalog may (``source_id``, ``ra``, ``dec``, ...; the spellings ``rank``
+    recognises, :func:`prioritize.catalog.columns.recognise`)."""
+    from ..catalog.columns import INPUT_COLUMNS
+
+    renames = {}
+    for canonical in ("star_id", "ra_deg", "dec_deg"):
+        if canonical in table.columns:
+            continue
+        spellings = [a.lower() for a in INPUT_COLUMNS[canonical].aliases]
+        found = sorted((c for c in table.columns if str(c).strip().lower() in spellings),
+                       key=lambda c: spellings.index(str(c).strip().lower()))
+        if found:
+            renames[found[0]] = canonical
+    return table.rename(columns=renames) if renames else table
 
 
 def _numeric(table, column: str) -> np.ndarray:

@@ -381,6 +381,53 @@ def teff_from_b_v_giant(b_v0, feh) -> Estimate:
     return Estimate(_masked(_a99_teff_unchecked(x, f), valid), valid)
 
 
+def b_v_from_teff(teff, feh, giant) -> Estimate:
+    """Intrinsic Johnson (B-V)_0 for a Teff: the inverse of :func:`teff_from_b_v_dwarf`
+    (Casagrande et al. 2010) where ``giant`` is False and of :func:`teff_from_b_v_giant`
+    (Alonso et al. 1999) where it is True.
+
+    Solved by bisection on arrays over the relation's colour range (both Teff(X) fall
+    monotonically there), so the round trip Teff -> (B-V)_0 -> Teff is exact.
+
+    Parameters
+    ----------
+    teff : array_like
+        Effective temperature (K).
+    feh : array_like
+        [Fe/H] (dex).
+    giant : array_like of bool
+        Which relation to invert.
+
+    Returns
+    -------
+    Estimate
+        (B-V)_0 in mag; NaN where the Teff lies outside what the relation covers at that
+        [Fe/H] (C10: 0.18-1.29 mag, A99: 0.20-1.70 mag).  A synthetic colour for
+        planning, not a measurement.
+
+    References
+    ----------
+    Casagrande L. et al. 2010, A&A 512, A54; Alonso A., Arribas S., Martinez-Roger C.
+    1999, A&AS 140, 261.
+    """
+    t, f, g = _broadcast(teff=teff, feh=feh, giant=giant)
+    g = g.astype(bool)
+    low = np.where(g, A99_B_V_BLUE_RANGE[0], C10_B_V_RANGE[0])
+    high = np.where(g, A99_B_V_RED_RANGE[1], C10_B_V_RANGE[1])
+
+    def relation(x):
+        return np.where(g, _a99_teff_unchecked(x, f), _c10_teff_unchecked(x, f))
+
+    feh_ok = np.where(g, _within(f, A99_FEH_RANGE), _within(f, C10_FEH_RANGE))
+    valid = (t <= relation(low)) & (t >= relation(high)) & feh_ok
+    for _ in range(_BISECTION_STEPS):
+        middle = 0.5 * (low + high)
+        too_hot = relation(middle) > t
+        low = np.where(too_hot, middle, low)
+        high = np.where(too_hot, high, middle)
+    return Estimate(_masked(0.5 * (low + high), valid), valid)
+
+
 # --------------------------------------------------------------------------------------
 # Extinction
 # --------------------------------------------------------------------------------------
@@ -498,6 +545,73 @@ def gaia_extinction(ebv, bp_rp_observed, n_iter=GAIA_EXTINCTION_ITERATIONS) -> G
         residual = colour + _colour_excess(colour, a0) - observed
         colour = colour - residual / (1.0 + _slope(_colour_excess, (colour, a0), 0))
     return gaia_extinction_from_intrinsic(ebv, colour)
+
+
+def ebv_from_gaia_excess(ebp_rp, bp_rp_observed, n_iter=GAIA_EXTINCTION_ITERATIONS) -> Estimate:
+    """E(B-V) from a colour excess E(BP-RP) (e.g. Gaia DR3 ``ebpminrp_gspphot``).
+
+    Inverts E(BP-RP) = (k_BP - k_RP)(X, A_0) A_0 with X = (BP-RP)_obs - E(BP-RP) the
+    intrinsic colour and E(B-V) = A_0 / 3.1, by fixed-point iteration on A_0 (the
+    k's change by a few per cent per magnitude of A_0, so it converges in a few
+    steps).  Without an observed colour X = 1 is used.
+
+    Parameters
+    ----------
+    ebp_rp : array_like
+        E(BP-RP) (mag), >= 0.
+    bp_rp_observed : array_like
+        Observed BP-RP (mag); NaN where not known.
+
+    Returns
+    -------
+    Estimate
+        E(B-V) (mag); invalid where E(BP-RP) is missing or negative.
+
+    References
+    ----------
+    Gaia Collaboration, Babusiaux C. et al. 2018, A&A 616, A10, eq. 1 and Table 1.
+    """
+    excess, observed = _broadcast(ebp_rp=ebp_rp, bp_rp_observed=bp_rp_observed)
+    x = np.where(np.isfinite(observed), observed - excess, 1.0)
+    a0 = R_V_DEFAULT * excess / GAIA_E_BP_RP_PER_EBV
+    for _ in range(n_iter):
+        a0 = excess / (_gaia_k(GAIA_K_BP, x, a0) - _gaia_k(GAIA_K_RP, x, a0))
+    valid = np.isfinite(excess) & (excess >= 0.0)
+    return Estimate(_masked(a0 / R_V_DEFAULT, valid), valid)
+
+
+def ebv_from_a_g(a_g, bp_rp_observed, n_iter=GAIA_EXTINCTION_ITERATIONS) -> Estimate:
+    """E(B-V) from the G-band extinction A_G (e.g. Gaia DR3 ``ag_gspphot``).
+
+    Inverts A_G = k_G(X, A_0) A_0 with the intrinsic colour X = (BP-RP)_obs -
+    E(BP-RP)(X, A_0), iterating A_0 and X together; E(B-V) = A_0 / 3.1.  Without an
+    observed colour X = 1 is used.
+
+    Parameters
+    ----------
+    a_g : array_like
+        A_G (mag), >= 0.
+    bp_rp_observed : array_like
+        Observed BP-RP (mag); NaN where not known.
+
+    Returns
+    -------
+    Estimate
+        E(B-V) (mag); invalid where A_G is missing or negative.
+
+    References
+    ----------
+    Gaia Collaboration, Babusiaux C. et al. 2018, A&A 616, A10, eq. 1 and Table 1.
+    """
+    a_g, observed = _broadcast(a_g=a_g, bp_rp_observed=bp_rp_observed)
+    known = np.isfinite(observed)
+    a0 = a_g / _gaia_k(GAIA_K_G, 1.0, 0.0)
+    x = np.where(known, observed, 1.0)
+    for _ in range(n_iter):
+        x = np.where(known, observed - _colour_excess(x, a0), 1.0)
+        a0 = a_g / _gaia_k(GAIA_K_G, x, a0)
+    valid = np.isfinite(a_g) & (a_g >= 0.0)
+    return Estimate(_masked(a0 / R_V_DEFAULT, valid), valid)
 
 
 # --------------------------------------------------------------------------------------
@@ -911,8 +1025,9 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
     Rules, applied row by row (vectorised):
 
     * [Fe/H]: catalog, else 0.0 +- 0.2 dex ("assumed solar").
-    * E(B-V): catalog (negative -> NaN and a note), else 0 ("assumed 0"); its error is
-      ``ebv_err`` when given, else 0.
+    * E(B-V): catalog (negative -> NaN and a note), else from ``ebp_rp`` (E(BP-RP),
+      :func:`ebv_from_gaia_excess`), else from ``a_g_ext`` (A_G, :func:`ebv_from_a_g`),
+      else 0 ("assumed 0"); its error is ``ebv_err`` when given, else 0.
     * Teff: catalog; else (BP-RP)_0 with Casagrande+2021 (observed BP-RP, or
       bp_mag - rp_mag, dereddened by :func:`gaia_extinction`), with log g from the
       catalog, else ``logg_guess``, else 4.0 for main_sequence/turnoff/subgiant and
@@ -968,7 +1083,7 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
         "teff_k", "teff_k_err", "logg", "logg_err", "feh", "feh_err", "logl_lsun",
         "logl_lsun_err", "g_mag", "g_mag_err", "bp_rp", "bp_rp_err", "bp_mag", "rp_mag",
         "v_mag", "v_mag_err", "b_v", "b_v_err", "parallax_mas", "parallax_mas_err", "ebv",
-        "ebv_err", "distance_pc")}
+        "ebv_err", "ebp_rp", "a_g_ext", "distance_pc")}
     guess = np.full(n, np.nan) if logg_guess is None else _as_float(logg_guess, "logg_guess")
     if guess.ndim > 1 or guess.size not in (1, n):
         raise PrioritizeError(f"logg_guess must be one value or one per row ({n}); got shape {guess.shape}")
@@ -982,11 +1097,17 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
     feh = np.where(has_feh, col["feh"], 0.0)
     feh_err = np.where(has_feh, col["feh_err"], ASSUMED_FEH_ERR)
     feh_sigma = _zero_if_nan(feh_err)
-    has_ebv = np.isfinite(col["ebv"])
-    negative_ebv = has_ebv & (col["ebv"] < 0.0)
+    bp_rp_observed = np.where(np.isfinite(col["bp_rp"]), col["bp_rp"], col["bp_mag"] - col["rp_mag"])
+    from_excess = ebv_from_gaia_excess(col["ebp_rp"], bp_rp_observed)
+    from_a_g = ebv_from_a_g(col["a_g_ext"], bp_rp_observed)
+    catalog_ebv, ebv_from = _first_finite(col["ebv"], from_excess.value, from_a_g.value)
+    has_ebv = np.isfinite(catalog_ebv)
+    negative_ebv = has_ebv & (catalog_ebv < 0.0)
     notes = _add_note(notes, negative_ebv, "ebv < 0")
-    ebv = np.where(negative_ebv, np.nan, np.where(has_ebv, col["ebv"], 0.0))
-    ebv_sigma = _zero_if_nan(col["ebv_err"])
+    ebv = np.where(negative_ebv, np.nan, np.where(has_ebv, catalog_ebv, 0.0))
+    ebv_sigma = np.where(ebv_from == 0, _zero_if_nan(col["ebv_err"]), 0.0)
+    ebv_source = np.array(["catalog", "from E(BP-RP) (Babusiaux et al. 2018)",
+                           "from A_G (Babusiaux et al. 2018)", "assumed 0"], dtype=object)[ebv_from]
 
     # log g for the colour-Teff relation
     stage_logg = np.select([dwarf_stage, giant_stage], [LOGG_DWARF_DEFAULT, LOGG_GIANT_DEFAULT], np.nan)
@@ -1066,6 +1187,6 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
         "radius_rsun": radius, "radius_source": radius_source,
         "feh": feh, "feh_err": feh_err,
         "feh_source": np.where(has_feh, "catalog", "assumed solar").astype(object),
-        "ebv_used": ebv, "ebv_source": np.where(has_ebv, "catalog", "assumed 0").astype(object),
+        "ebv_used": ebv, "ebv_source": ebv_source,
         "a_g_mag": a_g, "a_v_mag": a_v, "deriv_note": notes,
     }, index=df.index)
