@@ -389,7 +389,7 @@ def _cumulative(rate, age):
 
 
 def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, reference=None,
-               deposit=1.0):
+               deposit=1.0, lookup=None):
     """Lifetime of the signature following each (mass, z) track from ``eep``, and the
     process that ends it (``lithium.lifetime``).
 
@@ -399,8 +399,18 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, refer
     for the same star (the larger of the two counts, since the prior's depletion
     includes burning), thermohaline mixing above the RGB bump, and fingering mixing
     after a metal-rich accretion.  The baseline follows the star too (dredge-up,
-    thermohaline depletion, the clump), so z is recomputed at every point."""
+    thermohaline depletion, the clump), so z is recomputed at every point.
+
+    ``lookup`` (``teff_k``, ``logg``, one value per star, NaN where not given) is the
+    star's own Teff and logg now: the detection limit and the reference bins at the
+    present point are those of the star itself, as in its ``z_enrich``, and along the
+    future track they move with the model (Teff scaled by the star's ratio to the model
+    now, logg shifted by its offset), so the lifetime starts from the same z as the
+    significance the ranked row reports."""
     n = mass.size
+    lookup = lookup or {}
+    given_teff = np.broadcast_to(np.asarray(lookup.get("teff_k", np.nan), dtype=float), (n,))
+    given_logg = np.broadcast_to(np.asarray(lookup.get("logg", np.nan), dtype=float), (n,))
     life = np.full(n, np.nan)
     end = np.full(n, "", dtype=object)
     nodes = np.asarray(grid.eeps, dtype=float)
@@ -448,9 +458,13 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, refer
                   lifetime.END_THERMOHALINE: _cumulative(thm, age),
                   lifetime.END_FINGERING: -np.log(fingering)}
         survival = np.exp(-sum(v for k, v in losses.items() if k != lifetime.END_DILUTION))
+        teff_model = 10 ** cols["logteff"]
+        t_now, g_now = given_teff[sl, None], given_logg[sl, None]
+        along = {"teff_k": teff_model * np.where(np.isfinite(t_now), t_now / teff_model[:, :1], 1.0),
+                 "logg": cols["logg"] + np.where(np.isfinite(g_now), g_now - cols["logg"][:, :1], 0.0)}
         li = _lithium_at(grid, mm, zb, eb, cols, m_mix, m_max, m_pres[sl, None], gb, cfg,
                          composition, reference=reference, deposit=deposit[sl, None],
-                         li_survival=survival)
+                         li_survival=survival, lookup=along)
         z_along = np.where(ok, li["z"], np.nan)
         life[sl], crossing, ends = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature)
         end[sl] = lifetime.ending_process(ends, crossing, losses)
@@ -588,14 +602,21 @@ def _run_batch(df, cfg, grid, rng, reference):
         stage_i = li["stage"]
         zs = li["z"]
         z_med = np.nanmedian(zs, axis=1)
-        rep = np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1)
+        # the representative sample: the one closest to the median z from above, so a
+        # star whose median z clears the threshold is followed from a z that clears it
+        above = np.where(np.isfinite(zs) & (zs >= z_med[:, None]), zs - z_med[:, None], np.inf)
+        rep = np.where(np.isfinite(above).any(axis=1), np.argmin(above, axis=1),
+                       np.nanargmin(np.abs(np.where(np.isfinite(zs), zs, np.inf) - z_med[:, None]), axis=1))
+        own = {k: v[:, 0] for k, v in lookup.items()}
         life, end = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                               m_pres[r, rep], cfg, composition, reference, deposit[r, rep])
+                               m_pres[r, rep], cfg, composition, reference, deposit[r, rep], own)
         life_lo, life_hi = _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition,
-                                            reference, deposit)
+                                            reference, deposit, own)
         odds = _engulfment_odds(grid, mass[r, rep], z[r, rep], eep[r, rep], life, cfg)
         env = convective_envelope(grid, mass[r, rep], z[r, rep], eep[r, rep])
         tau = _surface_burning_time_yr(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz[r, rep])
+        t_ms = grid.interpolate(mass[r, rep], z[r, rep], np.full(idx.size, float(PHASE_EEPS["main_sequence"][1])),
+                                columns=["age_myr"])["age_myr"]
         res = {
             "mass_msun": mass.mean(axis=1), "mass_err_msun": mass.std(axis=1),
             "age_gyr": model["age_myr"].mean(axis=1) / 1e3,
@@ -626,6 +647,7 @@ def _run_batch(df, cfg, grid, rng, reference):
                              reference, lookup),
             **odds,
             "age_samples_myr": model["age_myr"],
+            "t_ms_myr": t_ms,
         }
     for col in ("mass_msun", "mass_err_msun", "age_gyr", "age_err_gyr", "eep", "m_cz_msun",
                 "a_li_base", "a_li_scatter", "a_li_enriched", "z_enrich", "z_enrich_err",
@@ -671,7 +693,7 @@ def _run_batch(df, cfg, grid, rng, reference):
     ages = np.full((n, s), np.nan)
     if "age_samples_myr" in res:
         ages[idx] = res["age_samples_myr"]
-    _rotation_columns(out, df, params, ages, cfg)
+    _rotation_columns(out, df, params, ages, cfg, _scatter(n, idx, res.get("t_ms_myr"), float))
     _observing_columns(out, df, model_logg, cfg, params["ebv_used"].to_numpy(float))
     out["p_engulfed"] = score.engulfed_posterior(out["p_engulfed_history"],
                                                  out["rotation_likelihood_ratio"])
@@ -706,7 +728,8 @@ def _engulfment_odds(grid, mass, z, eep, life, cfg):
     return {k: np.asarray(getattr(odds, k), dtype=float) for k in ODDS_COLUMNS}
 
 
-def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition, reference, deposit):
+def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition, reference, deposit,
+                     lookup=None):
     """Lifetimes of the samples at the 16th and 84th percentiles of z (the spread the
     placement uncertainty gives); zero where no sample reaches the threshold."""
     n = mass.shape[0]
@@ -720,7 +743,8 @@ def _lifetime_spread(grid, mass, z, eep, zs, m_cz_max, m_pres, cfg, composition,
         pick = np.nanargmin(np.abs(np.where(np.isfinite(zs[rows]), zs[rows], np.inf) - zq[:, None]), axis=1)
         target[rows], _ = _lifetimes(grid, mass[rows, pick], z[rows, pick], eep[rows, pick],
                                      m_cz_max[rows, pick], m_pres[rows, pick], cfg, composition,
-                                     reference, deposit[rows, pick])
+                                     reference, deposit[rows, pick],
+                                     {k: v[rows] for k, v in (lookup or {}).items()})
     return lo, hi
 
 
@@ -742,7 +766,8 @@ def _other_planets(grid, mass, z, eep, model, gb, m_cz, m_cz_max, m_pres, rep, m
         li = _lithium_at(grid, mass, z, eep, model, m_cz, m_cz_max, m_pres, gb, cfg_m, comp,
                          reference=reference, deposit=dep, lookup=lookup)
         life, _ = _lifetimes(grid, mass[r, rep], z[r, rep], eep[r, rep], m_cz_max[r, rep],
-                             m_pres[r, rep], cfg_m, comp, reference, dep[r, rep])
+                             m_pres[r, rep], cfg_m, comp, reference, dep[r, rep],
+                             {k: np.asarray(v, dtype=float)[:, 0] for k, v in lookup.items()})
         tag = f"{m:g}mj"
         cols[f"z_enrich_{tag}"] = np.nanmedian(li["z"], axis=1)
         cols[f"p_detect_{tag}"] = np.mean(li["z"] >= cfg.thresholds.z_signature, axis=1)
@@ -777,11 +802,14 @@ def _b_v0(df, params):
     return np.where(np.isfinite(observed), observed, from_teff)
 
 
-def _rotation_columns(out, df, params, age_samples, cfg):
+def _rotation_columns(out, df, params, age_samples, cfg, t_ms_myr=None):
     """Rotation evidence (``rotation.rotation_evidence``): observed and expected v_eq, the
     anomaly, the spin-up the configured planet would give, the planet the spin excess
-    needs, and the bounded likelihood ratio of a recent engulfment."""
+    needs, and the bounded likelihood ratio of a recent engulfment.  ``t_ms_myr`` is each
+    star's main-sequence lifetime on its track (it sets how much the gyrochronology ages
+    lean on the age prior, ``rotation.age_prior_weight``)."""
     n = len(out)
+    t_ms_myr = np.full(n, np.nan) if t_ms_myr is None else np.asarray(t_ms_myr, dtype=float)
     radius = out["radius_rsun"].to_numpy(float)
     radius = np.where(radius > 0, radius, np.nan)
     prot, prot_err = _column(df, "prot_d"), _column(df, "prot_d_err")
@@ -824,7 +852,8 @@ def _rotation_columns(out, df, params, age_samples, cfg):
         veq, veq_err, vsini, vsini_err, spin_up, out["lifetime_myr"].to_numpy(float),
         cluster_period_d=cluster_period, cluster_ln_scatter=cluster_ln,
         gyro_relation=cfg.rotation.gyro_relation,
-        other_cause_fraction=cfg.rotation.other_cause_fraction)
+        other_cause_fraction=cfg.rotation.other_cause_fraction,
+        age_prior_weight=rotation.age_prior_weight(t_ms_myr))
     exceeds, vnote = rotation.vsini_consistency(vsini, vsini_err, radius, RADIUS_FRACTIONAL_ERROR * radius,
                                                 prot, prot_err)
     out["veq_kms"] = veq

@@ -90,6 +90,17 @@ _MS_VEQ = np.array([1.0, 1.3, 1.7, 3.0, 5.0, 10.0, 40.0, 70.0, 100.0, 130.0, 160
                     200.0, 210.0])
 _MS_SPREAD = np.array([0.4, 0.4, 0.3, 0.3, 0.4, 0.6, 0.6, 0.5, 0.5, 0.4, 0.4, 0.4, 0.4, 0.4])
 
+# The same population keyed by the observable instead of the model mass (dwarfs from
+# 6000 K up; a model's mass at fixed Teff differs between track sets by ~0.1 Msun, which
+# moves the mass table by a factor 2 through the break): mean v_eq of class V stars by
+# Teff, ~10 km/s at F8 (6200 K), ~25 km/s at F5 (6500 K), ~100 km/s by 7000 K (Kraft
+# 1967, ApJ 150, 551 [from memory]; Sussholz, Mazeh & Faigler 2026 [checked] for the
+# break and 7000 K) and the A-star means above.
+_MS_TEFF = np.array([6000.0, 6200.0, 6400.0, 6550.0, 6750.0, 7000.0, 7500.0, 8500.0, 10000.0,
+                     12000.0, 14000.0])
+_MS_TEFF_VEQ = np.array([4.0, 8.0, 14.0, 25.0, 55.0, 100.0, 130.0, 160.0, 190.0, 200.0, 210.0])
+_MS_TEFF_SPREAD = np.array([0.5, 0.6, 0.6, 0.6, 0.6, 0.5, 0.5, 0.4, 0.4, 0.4, 0.4])
+
 # Rotation and lithium agree when their planet masses are within this factor.
 SPIN_LI_AGREEMENT_FACTOR = 3.0
 
@@ -409,6 +420,19 @@ def ms_rotation_velocity_kms(mass_msun):
     clipped = np.clip(mass, _MS_MASS[0], _MS_MASS[-1])
     veq = np.exp(np.interp(clipped, _MS_MASS, np.log(_MS_VEQ)))
     spread = veq * np.interp(clipped, _MS_MASS, _MS_SPREAD)
+    return np.where(inside, veq, np.nan), np.where(inside, spread, np.nan)
+
+
+def ms_rotation_velocity_from_teff_kms(teff_k):
+    """Typical main-sequence v_eq by Teff (km/s) and its spread, 6000-14000 K (NaN
+    outside): the observable-keyed form of :func:`ms_rotation_velocity_kms` for dwarfs
+    near and above the Kraft break (table ``_MS_TEFF``; Kraft 1967, ApJ 150, 551;
+    Sussholz, Mazeh & Faigler 2026).  A population value, not a prediction for one star."""
+    teff = np.asarray(teff_k, dtype=float)
+    inside = (teff >= _MS_TEFF[0]) & (teff <= _MS_TEFF[-1])
+    clipped = np.clip(np.nan_to_num(teff, nan=_MS_TEFF[0]), _MS_TEFF[0], _MS_TEFF[-1])
+    veq = np.exp(np.interp(clipped, _MS_TEFF, np.log(_MS_TEFF_VEQ)))
+    spread = veq * np.interp(clipped, _MS_TEFF, _MS_TEFF_SPREAD)
     return np.where(inside, veq, np.nan), np.where(inside, spread, np.nan)
 
 
@@ -805,6 +829,49 @@ _EDGES = np.concatenate([[0.0], 0.5 * (AGE_QUANTILES[1:] + AGE_QUANTILES[:-1]), 
 AGE_WEIGHTS = np.diff(_EDGES)
 AGE_NODES = AGE_QUANTILES.size
 AGE_CLIP_MYR = (50.0, 13800.0)
+# Isochrone ages say little about dwarfs that barely evolve within the age of the Galaxy
+# (Soderblom 2010, ARA&A 48, 581): the formal posterior of a K dwarf is narrow only
+# because model systematics (Teff scale, mixing length, [Fe/H]) are not in it.  For
+# gyrochronology the placement's age posterior is mixed with its own prior (constant star
+# formation over AGE_CLIP_MYR) with weight u = log2(t_MS / PRIOR_WEIGHT_T_MS_MYR) clipped
+# to [0, 1]: u = 0 for stars whose main-sequence lifetime t_MS is shorter than half the age
+# of the Universe, u = 1 for stars that outlive it (the ramp is a planning choice).
+PRIOR_WEIGHT_T_MS_MYR = 6900.0
+_MIX_AGE_GRID_MYR = np.geomspace(AGE_CLIP_MYR[0], AGE_CLIP_MYR[1], 400)
+
+
+def age_prior_weight(t_ms_myr):
+    """Weight of the age prior in the gyrochronology ages (see PRIOR_WEIGHT_T_MS_MYR)."""
+    t = np.asarray(t_ms_myr, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = np.log2(t / PRIOR_WEIGHT_T_MS_MYR)
+    return np.where(np.isfinite(t) & (t > 0), np.clip(u, 0.0, 1.0), 0.0)
+
+
+def mixture_age_quantiles(ages_myr, prior_weight, quantiles):
+    """Quantiles (n, Q) of (1 - u) x the empirical distribution of the age samples plus
+    u x the constant-star-formation prior on AGE_CLIP_MYR (ages clipped to it)."""
+    ages = np.clip(np.asarray(ages_myr, dtype=float), *AGE_CLIP_MYR)
+    u = np.broadcast_to(np.asarray(prior_weight, dtype=float), (ages.shape[0],))
+    q = np.asarray(quantiles, dtype=float)
+    out = np.nanquantile(ages, q, axis=1).T if ages.size else np.empty((0, q.size))
+    mix = np.flatnonzero(u > 0)
+    if mix.size:
+        g = _MIX_AGE_GRID_MYR
+        lo, hi = AGE_CLIP_MYR
+        f_prior = (g - lo) / (hi - lo)
+        for a in range(0, mix.size, 500):
+            rows = mix[a:a + 500]
+            sub = ages[rows]
+            valid = np.isfinite(sub)
+            count = np.maximum(valid.sum(axis=1), 1)
+            f_post = (np.where(valid, sub, np.inf)[:, :, None] <= g[None, None, :]).sum(axis=1) / count[:, None]
+            f_post = np.where(valid.any(axis=1)[:, None], f_post, f_prior[None, :])
+            f = (1.0 - u[rows, None]) * f_post + u[rows, None] * f_prior[None, :]
+            for j, qq in enumerate(q):
+                k = np.minimum((f < qq).sum(axis=1), g.size - 1)
+                out[rows, j] = g[k]
+    return out
 GYRO_COLOR_RANGE = (0.5, 1.6)                  # stay clear of Barnes' divergence at (B-V)_0 = 0.4
 KRAFT_BREAK_TEFF_K = 6250.0                    # above it no magnetic braking (Kraft 1967, ApJ 150, 551)
 # Evolved stars (post-main-sequence braking): cool G/K subgiants, giants and clump stars rotate
@@ -864,7 +931,8 @@ def _lognormal_density(u, mu, s):
     return np.exp(-0.5 * ((np.log(u) - mu) / s) ** 2) / (u * s * np.sqrt(2 * np.pi))
 
 
-def _population(stage, teff, mass, radius, b_v0, age_samples, cluster_period, cluster_ln, gyro):
+def _population(stage, teff, mass, radius, b_v0, age_samples, cluster_period, cluster_ln, gyro,
+                prior_weight=0.0):
     """Normal-population mixture of lognormals in v_eq: (mu, s, w) of shape (n, K) and the source."""
     n = stage.size
     k = AGE_NODES
@@ -877,9 +945,14 @@ def _population(stage, teff, mass, radius, b_v0, age_samples, cluster_period, cl
     two_pi_r = 2 * np.pi * radius * R_SUN_KM / SECONDS_PER_DAY
     # hot dwarfs: the main-sequence velocity of the mass
     v_ms, v_ms_spread = ms_rotation_velocity_kms(np.where(np.isfinite(mass), mass, np.nan))
-    hot = dwarf & np.isfinite(v_ms)
-    mu[hot, 0] = np.log(v_ms[hot])
-    s[hot, 0] = np.maximum(np.log1p(v_ms_spread[hot] / v_ms[hot]), HOT_LN_WIDTH)
+    # dwarfs from 6000 K up: keyed by their Teff (the observable), not the model mass
+    v_t, v_t_spread = ms_rotation_velocity_from_teff_kms(teff)
+    by_teff = np.isfinite(v_t)
+    v_dwarf = np.where(by_teff, v_t, v_ms)
+    v_dwarf_spread = np.where(by_teff, v_t_spread, v_ms_spread)
+    hot = dwarf & np.isfinite(v_dwarf)
+    mu[hot, 0] = np.log(v_dwarf[hot])
+    s[hot, 0] = np.maximum(np.log1p(v_dwarf_spread[hot] / v_dwarf[hot]), HOT_LN_WIDTH)
     w[hot, 0] = 1.0
     source[hot] = "hot_dwarf_empirical"
     # gyrochronology, marginalised over the age posterior
@@ -889,7 +962,8 @@ def _population(stage, teff, mass, radius, b_v0, age_samples, cluster_period, cl
     has_age = np.isfinite(ages).any(axis=1)
     gyro_ok &= has_age
     if gyro_ok.any():
-        nodes = np.nanquantile(ages[gyro_ok], AGE_QUANTILES, axis=1).T
+        u = np.broadcast_to(np.asarray(prior_weight, dtype=float), (n,))[gyro_ok]
+        nodes = mixture_age_quantiles(ages[gyro_ok], u, AGE_QUANTILES)
         period, spread = GYRO_RELATIONS[gyro](np.repeat(b_v0[gyro_ok, None], k, axis=1), nodes)
         mu[gyro_ok] = np.log(two_pi_r[gyro_ok, None] / period)
         s[gyro_ok] = np.maximum(spread / period, MIN_LN_WIDTH)
@@ -955,17 +1029,20 @@ def _quantiles_veq(mu, s, w, q):
 def rotation_evidence(stage, teff_k, mass_msun, radius_rsun, b_v0, age_samples_myr, veq_obs_kms,
                       veq_err_kms, vsini_kms, vsini_err_kms, spin_up_kms, lifetime_myr,
                       cluster_period_d=None, cluster_ln_scatter=None, gyro_relation="barnes2007",
-                      other_cause_fraction=0.05, chunk=1000) -> RotationEvidence:
+                      other_cause_fraction=0.05, chunk=1000, age_prior_weight=None) -> RotationEvidence:
     """Rotation as evidence for a recent engulfment: a bounded likelihood ratio.
 
     1. Normal population of v_eq by stage (a mixture of lognormals): main-sequence and
        turnoff dwarfs below the Kraft break and inside 0.5 <= (B-V)_0 <= 1.6 from
        gyrochronology (Barnes 2007 or Mamajek & Hillenbrand 2008) at 8 quantiles of the
-       star's age posterior — the placement's prior is constant star formation, so a
-       fast dwarf is first explained by the young tail of its ages and is anomalous
-       only if it is fast for every plausible age; cluster members from their cluster's
+       star's age distribution: the placement's posterior mixed with its prior (constant
+       star formation) with weight ``age_prior_weight`` (:func:`age_prior_weight`: 1 for
+       dwarfs that outlive the Universe, whose isochrone ages carry no information;
+       Soderblom 2010), so a fast K dwarf is first explained as a young star and is
+       anomalous only if it is fast for every plausible age; cluster members from their cluster's
        own sequence; hot dwarfs (above the break, in the Li dip) from the main-sequence
-       velocity of their mass (:func:`ms_rotation_velocity_kms`); subgiants, giants and
+       velocity of their Teff from 6000 K up (:func:`ms_rotation_velocity_from_teff_kms`),
+       else of their mass (:func:`ms_rotation_velocity_kms`); subgiants, giants and
        clump stars from the braked population of evolved stars (module constants).
     2. The observed quantity: v_eq = 2 pi R / P (Gaussian error: period and 10% radius)
        or, without a period, v sin i with sin i for random orientations and a Gaussian
@@ -989,6 +1066,9 @@ def rotation_evidence(stage, teff_k, mass_msun, radius_rsun, b_v0, age_samples_m
         Teff (K), mass (M_sun), radius (R_sun), dereddened B-V (mag).
     age_samples_myr : ndarray, shape (n, S)
         Age samples of the placement posterior (Myr).
+    age_prior_weight : array_like, optional
+        Per star, the weight u of the age prior in the gyrochronology ages (0: the
+        posterior alone; :func:`age_prior_weight` of the main-sequence lifetime).
     veq_obs_kms, veq_err_kms, vsini_kms, vsini_err_kms : array_like
         Observed v_eq from a period (and error), v sin i (and error), km/s; NaN unknown.
     spin_up_kms : array_like
@@ -1026,13 +1106,16 @@ def rotation_evidence(stage, teff_k, mass_msun, radius_rsun, b_v0, age_samples_m
         ("cluster_period_d", np.nan if cluster_period_d is None else cluster_period_d),
         ("cluster_ln_scatter", np.nan if cluster_ln_scatter is None else cluster_ln_scatter))]
     teff, mass, radius, bv, veq, veq_err, vsini, vsini_err, dv, life, cper, cln = arr
+    u_prior = np.broadcast_to(np.asarray(0.0 if age_prior_weight is None else age_prior_weight,
+                                         dtype=float), (n,))
+    u_prior = np.clip(np.nan_to_num(u_prior), 0.0, 1.0)
     ages = np.broadcast_to(np.asarray(age_samples_myr, dtype=float).reshape(n, -1), (n, np.size(age_samples_myr) // max(n, 1) or 1))
     out = {k: np.full(n, np.nan) for k in ("exp", "spread", "anom", "lr", "wvis")}
     source = np.full(n, "unavailable", dtype=object)
     for a in range(0, n, chunk):
         sl = slice(a, a + chunk)
         mu, s, w, src = _population(stage[sl], teff[sl], mass[sl], radius[sl], bv[sl], ages[sl],
-                                    cper[sl], cln[sl], gyro_relation)
+                                    cper[sl], cln[sl], gyro_relation, u_prior[sl])
         source[sl] = src
         have = w.sum(axis=1) > 0
         q16, q50, q84 = _quantiles_veq(mu, s, w, (0.16, 0.5, 0.84))
