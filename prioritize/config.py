@@ -70,6 +70,10 @@ class BaselineConfig:
                                      doc="scatter of the built-in prior (dex); 0 = by stage")
     measurement_error_dex: float = _spec(0.0, lo=0.0, hi=2.0,
                                          doc="expected A(Li) measurement error, added in quadrature")
+    thermohaline_depletion_dex: float = _spec(
+        1.0, lo=0.0, hi=4.0,
+        doc="Li destroyed by thermohaline mixing between the RGB bump and the tip (dex); "
+            "sets the baseline past the bump and the rate that ends a signature there")
 
 
 @dataclass(frozen=True)

@@ -342,7 +342,8 @@ def _lithium_at(grid, mass, z, eep, model, m_mix, m_cz_max, m_pres, gb, cfg, com
     feh = z_to_feh(z) + zeros
     stage_i = evolution.stage_index(eep, model["logl"], gb["bump_logl"], PHASE_EEPS)
     thermohaline = baseline.thermohaline_depletion(age_myr, gb["bump_age"], gb["tip_age"],
-                                                   eep >= PHASE_EEPS["core_he_burning"][0])
+                                                   eep >= PHASE_EEPS["core_he_burning"][0],
+                                                   cfg.baseline.thermohaline_depletion_dex)
     a_base, a_ms, dilution = baseline.prior_baseline(teff_zams, feh, age_myr / 1e3,
                                                      tams["age_myr"] / 1e3, m_cz_max, m_pres,
                                                      thermohaline)
@@ -448,7 +449,7 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, refer
                               1.0 / baseline.main_sequence_efolding_myr(teff_zams[:, None], age), 0.0)
         above_bump = ok & (eb >= gb["bump_eep"]) & (eb < gb1)
         thm = np.where(above_bump, np.nan_to_num(lifetime.thermohaline_rate_per_myr(
-            gb["bump_age"], gb["tip_age"])), 0.0)
+            gb["bump_age"], gb["tip_age"], cfg.baseline.thermohaline_depletion_dex)), 0.0)
         fingering = lifetime.fingering_survival(
             age - age[:, :1], m_planet[sl, None], planet_z, zz, m_cz[:, :1],
             now["mass_msun"][:, None] - now["core_mass_msun"][:, None] - m_cz[:, :1])

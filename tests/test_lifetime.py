@@ -1,6 +1,7 @@
 """Signature lifetime bookkeeping on hand-made tracks with known answers, and the
 mixing timescales that end signatures."""
 
+import pytest
 import numpy as np
 
 from prioritize.lithium.baseline import THERMOHALINE_DEPLETION_DEX
@@ -51,3 +52,32 @@ def test_fingering_survival_limits():
     assert fingering_survival(5.0, **args) < 0.5
     # a giant's envelope sits on almost no radiative mass: hardly any effect
     assert fingering_survival(1e4, 1e-3, 0.06, 0.02, 0.7, 0.01) > 0.98
+
+
+def test_the_thermohaline_depletion_is_a_config_choice():
+    """[baseline] thermohaline_depletion_dex sets both the baseline past the bump and the
+    rate that destroys the planet's lithium there (same physics, same star): halfway
+    from the bump to the tip the baseline is lower by half the configured amount, and
+    the rate scales with it."""
+    from prioritize.config import Config, with_overrides
+    from prioritize.engine import _giant_branch, signature_at
+    from prioritize.lithium.baseline import thermohaline_depletion
+    from prioritize.lithium.lifetime import thermohaline_rate_per_myr
+    from prioritize.stars.tracks import load_grid
+
+    assert thermohaline_depletion(150.0, 100.0, 200.0, False, 2.0) == -1.0
+    assert thermohaline_depletion(150.0, 100.0, 200.0, True, 2.0) == -2.0
+    assert thermohaline_rate_per_myr(100.0, 200.0, 2.0) == 2 * thermohaline_rate_per_myr(100.0, 200.0, 1.0)
+    grid = load_grid()
+    mass, z = np.array([1.2]), np.array([0.02])
+    gb = _giant_branch(grid, mass, z)
+    bump_age, tip_age = gb["bump_age"][0], gb["tip_age"][0]
+    eeps = np.linspace(gb["bump_eep"][0] + 0.5, 449.0, 200)
+    ages = grid.interpolate(np.full(eeps.size, 1.2), np.full(eeps.size, 0.02), eeps,
+                            columns=["age_myr"])["age_myr"]
+    eep = eeps[np.argmin(np.abs(ages - 0.5 * (bump_age + tip_age)))]
+    strong = signature_at(grid, mass, z, [eep], with_overrides(Config(), {"baseline.thermohaline_depletion_dex": 2.0}))
+    weak = signature_at(grid, mass, z, [eep], Config())
+    frac = (grid.interpolate(mass, z, np.array([eep]), columns=["age_myr"])["age_myr"][0] - bump_age) / (tip_age - bump_age)
+    assert 0.3 < frac < 0.7
+    assert strong["a_li_base"][0] - weak["a_li_base"][0] == pytest.approx(-1.0 * frac, abs=1e-6)

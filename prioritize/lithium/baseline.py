@@ -184,19 +184,24 @@ def dredge_up_dilution(m_cz_msun, m_preserved_msun):
         return np.minimum(0.0, np.log10(np.asarray(m_preserved_msun, dtype=float) / m_cz))
 
 
-def thermohaline_depletion(age_myr, bump_age_myr, tip_age_myr, in_clump):
+def thermohaline_depletion(age_myr, bump_age_myr, tip_age_myr, in_clump,
+                           depletion_dex=THERMOHALINE_DEPLETION_DEX):
     """Depletion (dex, <= 0) by thermohaline mixing above the RGB bump.
 
-    Linear in time from 0 at the bump to -THERMOHALINE_DEPLETION_DEX at the tip; the
-    full amount in the red clump; zero on tracks without a bump (NaN bump age) and
-    before the bump."""
+    Linear in time from 0 at the bump to -``depletion_dex`` at the tip (default
+    THERMOHALINE_DEPLETION_DEX; ``[baseline] thermohaline_depletion_dex`` in the
+    config); the full amount in the red clump; zero on tracks without a bump (NaN bump
+    age) and before the bump.  Model predictions of this depletion differ between
+    evolution codes by orders of magnitude in Li (Lattanzio et al. 2015, MNRAS 446,
+    2673), so it is a planning assumption; observed upper-RGB field giants sit at
+    A(Li) <~ 0 (Gratton et al. 2000, A&A 354, 169)."""
     age = np.asarray(age_myr, dtype=float)
     bump = np.asarray(bump_age_myr, dtype=float)
     tip = np.asarray(tip_age_myr, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         frac = np.clip((age - bump) / (tip - bump), 0.0, 1.0)
     frac = np.where(np.asarray(in_clump, dtype=bool), 1.0, frac)
-    return np.where(np.isfinite(bump) & np.isfinite(tip), -THERMOHALINE_DEPLETION_DEX * frac, 0.0)
+    return np.where(np.isfinite(bump) & np.isfinite(tip), -float(depletion_dex) * frac, 0.0)
 
 
 def prior_baseline(teff_zams_k, feh, age_gyr, ms_lifetime_gyr, m_cz_max_msun, m_preserved_msun,

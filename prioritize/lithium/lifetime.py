@@ -136,15 +136,16 @@ def ending_process(end, crossing, losses):
     return end
 
 
-def thermohaline_rate_per_myr(bump_age_myr, tip_age_myr):
+def thermohaline_rate_per_myr(bump_age_myr, tip_age_myr, depletion_dex=THERMOHALINE_DEPLETION_DEX):
     """e-folding rate (1/Myr) of surface lithium above the RGB bump.
 
-    rate = THERMOHALINE_DEPLETION_DEX ln(10) / (t_tip - t_bump): the fall of ≳ 1 dex
-    between the bump and the tip (Charbonnel & Zahn 2007, A&A 467, L15; from memory)
-    spread evenly in time.  NaN where the track has no bump."""
+    rate = depletion_dex ln(10) / (t_tip - t_bump): the fall of ≳ 1 dex between the
+    bump and the tip (Charbonnel & Zahn 2007, A&A 467, L15; from memory) spread evenly
+    in time; ``depletion_dex`` defaults to THERMOHALINE_DEPLETION_DEX (config
+    ``[baseline] thermohaline_depletion_dex``).  NaN where the track has no bump."""
     with np.errstate(divide="ignore", invalid="ignore"):
         span = np.asarray(tip_age_myr, dtype=float) - np.asarray(bump_age_myr, dtype=float)
-        return np.where(span > 0, THERMOHALINE_DEPLETION_DEX * np.log(10.0) / span, np.nan)
+        return np.where(span > 0, float(depletion_dex) * np.log(10.0) / span, np.nan)
 
 
 def fingering_survival(elapsed_myr, m_planet_msun, planet_z, star_z, m_cz_msun, m_radiative_msun):
