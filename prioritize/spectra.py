@@ -41,8 +41,12 @@ AMU_G = u.u.to(u.g)                     # atomic mass unit (g), CODATA via astro
 MASS_LI7_U = 7.016003                   # 7Li atomic mass (u), AME2016 (Wang et al. 2017)
 
 LI6708_WAVELENGTH_A = 6707.8            # gf-weighted centre of the 7Li doublet (air), from the components
-LI6708_COMPONENTS_A = (6707.761, 6707.912)   # doublet components (air), standard atomic data
-LI6708_COMPONENT_F = (0.4982, 0.2491)        # oscillator strengths, standard atomic data
+# Li I 2s 2S1/2 - 2p 2P3/2, 2P1/2 (air wavelengths) and their absorption oscillator strengths
+# (log gf = -0.002, -0.303): NIST Atomic Spectra Database (Kramida et al.), values from the
+# calculations of Yan, Tambasco & Drake 1998, Phys. Rev. A 57, 1652 [from memory]; the 2:1
+# ratio of the fine-structure components is exact in LS coupling.
+LI6708_COMPONENTS_A = (6707.761, 6707.912)   # doublet components (air)
+LI6708_COMPONENT_F = (0.4982, 0.2491)        # oscillator strengths f_ik
 LI6708_LOG_GF = 0.17                    # total log gf of the doublet: log10 of the summed g f (g = 2)
 LI6104_WAVELENGTH_A = 6103.6            # Li I 2p-3d subordinate line (air), from memory
 LI6104_LOG_GF = 0.58                    # total log gf, from memory

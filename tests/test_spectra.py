@@ -180,6 +180,18 @@ def test_doublet_width_is_second_moment_of_the_blend():
     assert spectra.LI6708_DOUBLET_FWHM_A == pytest.approx(2.0 * math.sqrt(2.0 * math.log(2.0)) * std, rel=1e-3)
 
 
+def test_li_doublet_atomic_data():
+    """log gf = -0.002 and -0.303 for the 2P3/2 and 2P1/2 components (NIST ASD; Yan,
+    Tambasco & Drake 1998), total f(2s-2p) = 0.747, components 2:1 (LS coupling), air
+    wavelengths 6707.76 and 6707.91 A, 0.151 A apart (values from memory)."""
+    (l1, l2), (f1, f2) = spectra.LI6708_COMPONENTS_A, spectra.LI6708_COMPONENT_F
+    g_lower = 2                                   # 2s 2S1/2
+    assert math.log10(g_lower * f1) == pytest.approx(-0.002, abs=0.002)
+    assert math.log10(g_lower * f2) == pytest.approx(-0.303, abs=0.002)
+    assert f1 + f2 == pytest.approx(0.747, abs=0.001) and f1 / f2 == pytest.approx(2.0, rel=1e-3)
+    assert (l1, l2) == (pytest.approx(6707.76, abs=0.01), pytest.approx(6707.91, abs=0.01))
+
+
 # Cayrel (1988): R, FWHM (A), dx (A), sigma_EW x S/N (mA), S/N for 3 sigma on 10 and 20 mA
 CAYREL_TABLE = [
     (25000, 0.268, 0.107, 255, 76, 38),
