@@ -9,7 +9,7 @@ from prioritize.lithium.enrichment import (PlanetComposition, enriched_abundance
 
 # Check table computed from the atom-counting formula with X_* = X_p = 0.70,
 # A_p = 3.26, w_Li = 1.5 ppm; values are quoted to 0.001 dex, so the tolerance is the
-# rounding plus the stated 0.002 dex of the task.
+# rounding plus an accepted 0.002 dex.
 ABUNDANCE_TOL_DEX = 0.002
 GAS = PlanetComposition("gas_giant", 0.70, 3.26)
 ROCK = PlanetComposition("rocky", li_mass_fraction=1.5e-6)

@@ -7,9 +7,9 @@ Outside references:
   Sun 0.0253 M_sun from this envelope model at the present solar mixture
   (computed with OPAL + Ferguson opacities), ~0.025 M_sun in standard solar models (from memory).
 - Main-sequence stars hotter than ~7000 K have only thin surface convection zones,
-  M_cz < 1e-5 M_sun (the issue's check; from memory).
+  M_cz < 1e-5 M_sun (acceptance level; from memory).
 - Lower giant branch: M_cz/M between 0.65 and 0.9 and within 10 % of M - M_core
-  (the issue's check; this envelope model with OPAL gives 0.70-0.84, within a few % of
+  (acceptance level; this envelope model with OPAL gives 0.70-0.84, within a few % of
   M - M_core).
 - First-ascent giants below the RGB bump: T_bcz below ~4 MK (from memory).
 - Thin adiabatic envelope, T(r) = (2/5) (mu m_H G M/k)(1/r - 1/R) with mu = 0.6
@@ -45,9 +45,9 @@ SOLAR_RBCZ_FRACTION = 0.713          # Christensen-Dalsgaard et al. 1991
 SUN_RBCZ_TOL = 0.02                  # the grid's Sun is the fits' (L = 0.956, R = 0.985 at 4.57 Gyr), not the L = R = 1 calibration star
 SUN_M_CZ_MSUN = 0.0253               # this envelope model at the present solar mixture (computed)
 SUN_AGE_MYR = 4570.0
-HOT_MS_TEFF_K = 7000.0               # the issue's check
+HOT_MS_TEFF_K = 7000.0               # acceptance level
 HOT_MS_M_CZ_MAX_MSUN = 1e-5
-LOWER_RGB_FRACTION = (0.65, 0.9)     # M_cz/M, the issue's check
+LOWER_RGB_FRACTION = (0.65, 0.9)     # M_cz/M, acceptance level
 LOWER_RGB_CORE_REL_TOL = 0.10        # M_cz within 10 % of M - M_core ...
 LOWER_RGB_CORE_SHARE = 0.97          # ... for 97 % of the lower-giant-branch points (measured 97.5 %)
 LOWER_RGB_CORE_REL_MAX = 0.20        # ... and all within 20 % (measured worst 18.5 %)
@@ -64,7 +64,7 @@ THIN_ENVELOPE_REL_TOL = 0.10         # adiabatic thin-envelope formula, mu = 0.6
 BUMP_LOGL_SCIENCE = {1.0: 1.5, 1.5: 1.65, 2.0: 1.9}   # approximate values, from memory
 BUMP_LOGL_TOL_DEX = 0.35             # from memory (+-20-50 % timescales); our low-mass bump is ~0.3 dex faint (see above)
 FRESH_REL_TOL = 0.01                 # grid point vs a fresh integration with the stored inputs (stored to 2^-12..2^-14)
-OFF_GRID_REL_TOL = 0.10              # the issue's check: interpolated vs direct integration at off-grid masses
+OFF_GRID_REL_TOL = 0.10              # acceptance level: interpolated vs direct integration at off-grid masses
 OFF_GRID_MASSES = (1.075, 1.4375, 1.825)
 OFF_GRID_STRIDE = 12                 # integrate every 12th EEP of the fresh tracks (test run time)
 SAMPLE_SEED = 20261201
@@ -135,7 +135,7 @@ def _lower_giant_branch(grid):
 
 
 def test_lower_giant_branch_envelope(grid):
-    """The issue's check: 0.65 < M_cz/M < 0.9 (for M >= 0.8 M_sun; measured down to 0.62
+    """Acceptance level: 0.65 < M_cz/M < 0.9 (for M >= 0.8 M_sun; measured down to 0.62
     at 0.7-0.75 M_sun, Z <= 0.005, stars older than the Universe) and M_cz within 10 %
     of M - M_core (97 % of the points, measured 97.5 %; worst 18.5 %, in the same stars)."""
     lower = _lower_giant_branch(grid)

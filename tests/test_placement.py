@@ -1,6 +1,6 @@
 """Placing stars on tracks: inject stars drawn from the grid, recover their masses.
 
-Inject-and-recover is the check the task sets for the posterior: with honest error
+Inject-and-recover is the acceptance check for the posterior: with honest error
 bars, the true mass must lie within the reported 1-sigma spread in >= 60% of cases
 (a Gaussian gives 68%) and within 2 sigma in >= 95%.
 """
@@ -13,8 +13,8 @@ from prioritize.stars.tracks import PHASE_EEPS, feh_to_z, load_grid, z_to_feh
 
 N_STARS = 600
 SAMPLES = 256
-ONE_SIGMA_MIN = 0.60    # task requirement (a Gaussian gives 0.683)
-TWO_SIGMA_MIN = 0.95    # task requirement (a Gaussian gives 0.954)
+ONE_SIGMA_MIN = 0.60    # acceptance level (a Gaussian gives 0.683)
+TWO_SIGMA_MIN = 0.95    # acceptance level (a Gaussian gives 0.954)
 
 
 @pytest.fixture(scope="module")
@@ -128,7 +128,7 @@ def test_same_seed_same_samples(grid):
 
 
 MASS_ERR = 0.1          # Msun, the catalog error of the mass+stage stars below
-MASS_KEPT_SIGMA = 1.0   # task requirement: the placed current mass stays within 1 sigma
+MASS_KEPT_SIGMA = 1.0   # acceptance level: the placed current mass stays within 1 sigma
 
 
 def _mass_stage(grid, mass, stage, feh=0.0, seed=5, **measured):

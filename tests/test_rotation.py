@@ -13,7 +13,7 @@ from prioritize.errors import ModelRangeError, PrioritizeError
 # Computed from the published relations: B-V = 0.65 at 4570 Myr -> 26.6 d (Barnes 2007), 26.2 d (MH08).
 # Quoted to 0.1 d, so the tolerance is the rounding (0.05 d) plus a margin.
 GYRO_PERIOD_TOL_D = 0.06
-# Spin-up check values computed from Delta J = M_p sqrt(G M a): the task's 2%, plus half a unit of the
+# Spin-up check values computed from Delta J = M_p sqrt(G M a): the required 2%, plus half a unit of the
 # quoted 0.1 km/s (the 0.9 and 1.0 km/s entries are rounded by 3-5%).
 SPIN_UP_REL_TOL = 0.02
 SPIN_UP_ROUNDING_KMS = 0.05

@@ -24,7 +24,7 @@ from prioritize.errors import PrioritizeError
 from prioritize.instruments import load_instrument
 
 EW_TABLE_TOL_DEX = 0.08         # the compact form must match the 3D NLTE table (Wang et al. 2021) to 0.08 dex
-ROUND_TRIP_TOL_DEX = 0.10       # A(Li) recovered by breidablik from our EW (task requirement)
+ROUND_TRIP_TOL_DEX = 0.10       # A(Li) recovered by breidablik from our EW (project acceptance level)
 LI6104_TABLE_TOL_DEX = 0.10     # EW(6104) values (breidablik, Wang et al. 2021)
 LI6104_ROUND_TRIP_TOL_DEX = 0.10
 A_ERROR_REL_TOL = 0.15          # linear error propagation vs finite differences through breidablik
