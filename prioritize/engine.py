@@ -18,7 +18,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from . import engulfment, exposure, rotation, score, spectra
+from . import engulfment, exposure, rotation, score, spectra, track_tables
 from .catalog import status as st
 from .config import Config, with_overrides
 from .errors import PrioritizeError
@@ -46,6 +46,7 @@ BREAKUP_KMS_SOLAR = 436.76  # sqrt(G M_sun / R_sun) in km/s (IAU 2015 nominal GM
 MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
 OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>mj" per extra planet
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
+TABLE_MASS_SPLIT = 2         # table of the deepest envelope: the grid's mass steps halved
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
 LIFETIME_CHUNK = 2000        # stars per chunk when following tracks into the future
 EARLY_EEP_STEPS = (0.001, 0.003, 0.01, 0.03, 0.1, 0.3)  # sub-steps after the present point
@@ -224,10 +225,37 @@ def _stage_contradicted_by_l(grid, p, rows, teff, logl, logl_err, s):
 
 def _deepest_envelope_so_far(grid, mass, z, eep, m_cz_now):
     """Deepest convective envelope reached between the ZAMS and ``eep`` (M_sun):
-    dilution of the star's own lithium never reverses."""
+    dilution of the star's own lithium never reverses.  The direct computation
+    (:data:`HISTORY_NODES` points along the past track); the chain reads it from a
+    table of the same function on the grid's nodes (:func:`_deepest_envelope`)."""
     past = eep[..., None] * np.linspace(0.0, 1.0, HISTORY_NODES)
-    past_cz = convective_envelope(grid, mass[..., None], z[..., None], past)["m_cz_msun"]
+    past_cz = convective_envelope(grid, mass[..., None], z[..., None], past,
+                                  columns=("m_cz_msun",))["m_cz_msun"]
     return np.fmax(np.nanmax(np.where(np.isfinite(past_cz), past_cz, -np.inf), axis=-1), m_cz_now)
+
+
+def _deepest_envelope_nodes(mass, z, eep, grid):
+    m_cz = convective_envelope(grid, mass, z, eep, columns=("m_cz_msun",))["m_cz_msun"]
+    return {"m_cz_max_msun": _deepest_envelope_so_far(grid, mass, z, eep, m_cz)}
+
+
+def deepest_envelope_table(grid) -> track_tables.PointTable:
+    """:func:`_deepest_envelope_so_far` on every node of the grid, cached (log M_cz)."""
+    def build(g):
+        masses = track_tables.refined_masses(g, TABLE_MASS_SPLIT)
+        values = track_tables.evaluate_on_nodes(g, lambda m, z, e: _deepest_envelope_nodes(m, z, e, g),
+                                                masses=masses)
+        return track_tables.PointTable(masses, g.z, g.eeps.size, track_tables.log_values(values),
+                                       log_names=("m_cz_max_msun",))
+    return track_tables.cached_table(grid, "deepest-envelope", build,
+                                     extra=f"history_nodes={HISTORY_NODES};split={TABLE_MASS_SPLIT}")
+
+
+def _deepest_envelope(grid, mass, z, eep, m_cz_now):
+    """:func:`_deepest_envelope_so_far` interpolated from :func:`deepest_envelope_table`
+    (never shallower than the envelope now)."""
+    got = deepest_envelope_table(grid)(mass, z, eep)["m_cz_max_msun"]
+    return np.fmax(np.where(np.isfinite(got), got, -np.inf), m_cz_now)
 
 
 def _li_preserving_mass(grid, mass, z):
@@ -241,12 +269,14 @@ def _li_preserving_mass(grid, mass, z):
     return np.where(np.isfinite(got), got, baseline.li_preserving_mass_interim(mass))
 
 
-def _preserved_reservoir(grid, mass, z, eep):
+def _preserved_reservoir(grid, mass, z, eep, direct=True):
     """Mass holding the main-sequence lithium: the Li-preserving layer, or the convective
-    envelope before the turnoff where that was deeper (M_sun)."""
+    envelope before the turnoff where that was deeper (M_sun).  ``direct=False`` reads
+    the deepest envelope from its table (:func:`_deepest_envelope`)."""
     turnoff = np.minimum(eep, TURNOFF_EEP)
-    m_cz_ms = _deepest_envelope_so_far(grid, mass, z, turnoff,
-                                       convective_envelope(grid, mass, z, turnoff)["m_cz_msun"])
+    deepest = _deepest_envelope_so_far if direct else _deepest_envelope
+    m_cz_ms = deepest(grid, mass, z, turnoff,
+                      convective_envelope(grid, mass, z, turnoff, columns=("m_cz_msun",))["m_cz_msun"])
     return np.fmax(_li_preserving_mass(grid, mass, z), m_cz_ms)
 
 
@@ -266,7 +296,7 @@ def _surface_burning_time_yr(grid, mass, z, eep, m_cz):
     """e-folding time of surface lithium by 7Li(p, alpha) at the base of the envelope
     (``burning.surface_li_timescale_yr``) at track points; inf where the grid has no
     convective base or the base is too cool to burn."""
-    env = convective_envelope(grid, mass, z, eep)
+    env = convective_envelope(grid, mass, z, eep, columns=("t_bcz_k", "rho_bcz_gcc", "r_bcz_rsun"))
     current = grid.interpolate(mass, z, eep, columns=["mass_msun"])["mass_msun"]
     ok = (np.isfinite(env["t_bcz_k"]) & (env["t_bcz_k"] > 0) & np.isfinite(env["rho_bcz_gcc"])
           & (env["rho_bcz_gcc"] > 0) & (env["r_bcz_rsun"] > 0) & (m_cz > 0) & (m_cz < current))
@@ -313,9 +343,9 @@ def _deposition(grid, mass, z, eep, cfg):
 def _envelope_and_lithium(grid, mass, z, eep, model, gb, cfg, composition, reference, deposit=1.0,
                           lookup=None):
     """Envelope now and deepest so far, the lithium reservoir, and the lithium at points."""
-    m_cz = convective_envelope(grid, mass, z, eep)["m_cz_msun"]
-    m_cz_max = _deepest_envelope_so_far(grid, mass, z, eep, m_cz)
-    m_pres = _preserved_reservoir(grid, mass, z, eep)
+    m_cz = convective_envelope(grid, mass, z, eep, columns=("m_cz_msun",))["m_cz_msun"]
+    m_cz_max = _deepest_envelope(grid, mass, z, eep, m_cz)
+    m_pres = _preserved_reservoir(grid, mass, z, eep, direct=False)
     li = _lithium_at(grid, mass, z, eep, model, m_cz, m_cz_max, m_pres, gb, cfg, composition,
                      reference=reference, deposit=deposit, lookup=lookup)
     return m_cz, m_cz_max, m_pres, li
@@ -414,62 +444,83 @@ def _lifetimes(grid, mass, z, eep, m_cz_max_now, m_pres, cfg, composition, refer
     given_logg = np.broadcast_to(np.asarray(lookup.get("logg", np.nan), dtype=float), (n,))
     life = np.full(n, np.nan)
     end = np.full(n, "", dtype=object)
-    nodes = np.asarray(grid.eeps, dtype=float)
     deposit = np.broadcast_to(np.asarray(deposit, dtype=float), (n,))
     gb_all = _giant_branch(grid, mass, z)
+    args = (grid, mass, z, eep, m_cz_max_now, m_pres, deposit, gb_all, cfg, composition, reference,
+            given_teff, given_logg)
+    # the present point alone first: a star whose signature is below the threshold now
+    # has lifetime 0 (below_threshold) whatever its future, so only the others are
+    # followed along their tracks (column 0 is the same in both passes)
+    z_now = np.full(n, np.nan)
+    for start in range(0, n, LIFETIME_CHUNK * 8):
+        rows = np.arange(start, min(start + LIFETIME_CHUNK * 8, n))
+        life[rows], end[rows], z_now[rows] = _follow_tracks(*args, rows, present_only=True)
+    live = np.flatnonzero(z_now >= cfg.thresholds.z_signature)
+    for start in range(0, live.size, LIFETIME_CHUNK):
+        rows = live[start:start + LIFETIME_CHUNK]
+        life[rows], end[rows], _ = _follow_tracks(*args, rows, present_only=False)
+    return life, end
+
+
+def _follow_tracks(grid, mass, z, eep, m_cz_max_now, m_pres, deposit, gb_all, cfg, composition,
+                   reference, given_teff, given_logg, rows, present_only):
+    """Lifetime, ending process and present z of ``rows`` (see :func:`_lifetimes`);
+    ``present_only`` evaluates the present point alone."""
+    nodes = np.asarray(grid.eeps, dtype=float)
     gb0, gb1 = PHASE_EEPS["giant_branch"]
     ms1 = PHASE_EEPS["main_sequence"][1]
     planet_z = cfg.planet.bulk_metallicity if composition.kind in GAS_KINDS else 1.0
     m_planet = mjup_to_msun(cfg.planet.mass_mjup) * deposit
-    for start in range(0, n, LIFETIME_CHUNK):
-        sl = slice(start, start + LIFETIME_CHUNK)
-        m, zz, e = mass[sl, None], z[sl, None], eep[sl, None]
+    sl = rows
+    m, zz, e = mass[sl, None], z[sl, None], eep[sl, None]
+    if present_only:
+        future = np.where(e <= nodes[-1], e, np.nan)
+    else:
         # fractions of the next EEP step resolve the first Myr after engulfment (one
         # main-sequence step is ~50 Myr; fingering mixing acts within a few Myr)
         soon = np.minimum(e + np.array(EARLY_EEP_STEPS)[None, :], np.floor(e) + 1.0)
         future = np.concatenate([e, soon, np.where(nodes[None, :] > e, nodes[None, :], np.nan)], axis=1)
         future = np.where(future <= nodes[-1], future, np.nan)
         future = np.sort(future, axis=1)          # NaN to the end, current point first
-        ok = np.isfinite(future)
-        mm = np.broadcast_to(m, future.shape)
-        zb = np.broadcast_to(zz, future.shape)
-        eb = np.where(ok, future, 0.0)
-        cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl", "logteff", "logg"])
-        now = grid.interpolate(m[:, 0], zz[:, 0], e[:, 0], columns=["mass_msun", "core_mass_msun"])
-        m_cz = np.where(ok, convective_envelope(grid, mm, zb, eb)["m_cz_msun"], np.nan)
-        # the planet's lithium stays in the deepest envelope reached since engulfment
-        m_mix = np.fmax.accumulate(m_cz, axis=1)
-        m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
-        age = np.where(ok, cols["age_myr"], np.nan)
-        gb = {k: v[sl, None] for k, v in gb_all.items()}
-        burn = np.where(ok, 1e6 / _surface_burning_time_yr(grid, mm, zb, eb, m_mix), 0.0)
-        teff_zams = 10 ** grid.interpolate(m[:, 0], zz[:, 0], np.zeros(m.shape[0]),
-                                           columns=["logteff"])["logteff"]
-        prior_rate = np.where(ok & (eb < ms1),
-                              1.0 / baseline.main_sequence_efolding_myr(teff_zams[:, None], age), 0.0)
-        above_bump = ok & (eb >= gb["bump_eep"]) & (eb < gb1)
-        thm = np.where(above_bump, np.nan_to_num(lifetime.thermohaline_rate_per_myr(
-            gb["bump_age"], gb["tip_age"], cfg.baseline.thermohaline_depletion_dex)), 0.0)
-        fingering = lifetime.fingering_survival(
-            age - age[:, :1], m_planet[sl, None], planet_z, zz, m_cz[:, :1],
-            now["mass_msun"][:, None] - now["core_mass_msun"][:, None] - m_cz[:, :1])
-        losses = {lifetime.END_DILUTION: np.log(m_mix / m_mix[:, :1]),
-                  lifetime.END_BURNING: _cumulative(burn, age),
-                  lifetime.END_MS_DEPLETION: _cumulative(np.maximum(prior_rate - burn, 0.0), age),
-                  lifetime.END_THERMOHALINE: _cumulative(thm, age),
-                  lifetime.END_FINGERING: -np.log(fingering)}
-        survival = np.exp(-sum(v for k, v in losses.items() if k != lifetime.END_DILUTION))
-        teff_model = 10 ** cols["logteff"]
-        t_now, g_now = given_teff[sl, None], given_logg[sl, None]
-        along = {"teff_k": teff_model * np.where(np.isfinite(t_now), t_now / teff_model[:, :1], 1.0),
-                 "logg": cols["logg"] + np.where(np.isfinite(g_now), g_now - cols["logg"][:, :1], 0.0)}
-        li = _lithium_at(grid, mm, zb, eb, cols, m_mix, m_max, m_pres[sl, None], gb, cfg,
-                         composition, reference=reference, deposit=deposit[sl, None],
-                         li_survival=survival, lookup=along)
-        z_along = np.where(ok, li["z"], np.nan)
-        life[sl], crossing, ends = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature)
-        end[sl] = lifetime.ending_process(ends, crossing, losses)
-    return life, end
+    ok = np.isfinite(future)
+    mm = np.broadcast_to(m, future.shape)
+    zb = np.broadcast_to(zz, future.shape)
+    eb = np.where(ok, future, 0.0)
+    cols = grid.interpolate(mm, zb, eb, columns=["age_myr", "logl", "logteff", "logg"])
+    now = grid.interpolate(m[:, 0], zz[:, 0], e[:, 0], columns=["mass_msun", "core_mass_msun"])
+    m_cz = np.where(ok, convective_envelope(grid, mm, zb, eb, columns=("m_cz_msun",))["m_cz_msun"], np.nan)
+    # the planet's lithium stays in the deepest envelope reached since engulfment
+    m_mix = np.fmax.accumulate(m_cz, axis=1)
+    m_max = np.fmax(m_mix, m_cz_max_now[sl, None])
+    age = np.where(ok, cols["age_myr"], np.nan)
+    gb = {k: v[sl, None] for k, v in gb_all.items()}
+    burn = np.where(ok, 1e6 / _surface_burning_time_yr(grid, mm, zb, eb, m_mix), 0.0)
+    teff_zams = 10 ** grid.interpolate(m[:, 0], zz[:, 0], np.zeros(m.shape[0]),
+                                       columns=["logteff"])["logteff"]
+    prior_rate = np.where(ok & (eb < ms1),
+                          1.0 / baseline.main_sequence_efolding_myr(teff_zams[:, None], age), 0.0)
+    above_bump = ok & (eb >= gb["bump_eep"]) & (eb < gb1)
+    thm = np.where(above_bump, np.nan_to_num(lifetime.thermohaline_rate_per_myr(
+        gb["bump_age"], gb["tip_age"], cfg.baseline.thermohaline_depletion_dex)), 0.0)
+    fingering = lifetime.fingering_survival(
+        age - age[:, :1], m_planet[sl, None], planet_z, zz, m_cz[:, :1],
+        now["mass_msun"][:, None] - now["core_mass_msun"][:, None] - m_cz[:, :1])
+    losses = {lifetime.END_DILUTION: np.log(m_mix / m_mix[:, :1]),
+              lifetime.END_BURNING: _cumulative(burn, age),
+              lifetime.END_MS_DEPLETION: _cumulative(np.maximum(prior_rate - burn, 0.0), age),
+              lifetime.END_THERMOHALINE: _cumulative(thm, age),
+              lifetime.END_FINGERING: -np.log(fingering)}
+    survival = np.exp(-sum(v for k, v in losses.items() if k != lifetime.END_DILUTION))
+    teff_model = 10 ** cols["logteff"]
+    t_now, g_now = given_teff[sl, None], given_logg[sl, None]
+    along = {"teff_k": teff_model * np.where(np.isfinite(t_now), t_now / teff_model[:, :1], 1.0),
+             "logg": cols["logg"] + np.where(np.isfinite(g_now), g_now - cols["logg"][:, :1], 0.0)}
+    li = _lithium_at(grid, mm, zb, eb, cols, m_mix, m_max, m_pres[sl, None], gb, cfg,
+                     composition, reference=reference, deposit=deposit[sl, None],
+                     li_survival=survival, lookup=along)
+    z_along = np.where(ok, li["z"], np.nan)
+    life, crossing, ends = lifetime.signature_lifetime(age, z_along, cfg.thresholds.z_signature)
+    return life, lifetime.ending_process(ends, crossing, losses), z_along[:, 0]
 
 
 def signature_at(grid: TrackGrid, mass, z, eep, cfg: Config, reference=None) -> dict:

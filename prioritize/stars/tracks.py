@@ -548,7 +548,7 @@ ENVELOPE_OUTPUTS = ("m_cz_msun", "r_bcz_rsun", "t_bcz_k", "rho_bcz_gcc", "m_li_p
                     QUALITY_COLUMN)
 
 
-def convective_envelope(grid, mass, z, eep):
+def convective_envelope(grid, mass, z, eep, columns=None):
     """Convective-envelope properties at track points: the package's one access point.
 
     Every part of the package reads envelope properties through this function, so
@@ -572,6 +572,8 @@ def convective_envelope(grid, mass, z, eep):
         The track grid.
     mass, z, eep : array_like
         Initial mass (M_sun), metal mass fraction, fractional EEP; broadcastable.
+    columns : sequence of str, optional
+        Only these of :data:`ENVELOPE_OUTPUTS` (default: all).
 
     Returns
     -------
@@ -589,7 +591,12 @@ def convective_envelope(grid, mass, z, eep):
     Böhm-Vitense 1958, Z. Astrophys. 46, 108; Iglesias & Rogers 1996, ApJ 464, 943;
     Ferguson et al. 2005, ApJ 623, 585; Hurley, Pols & Tout 2000, MNRAS 315, 543.
     """
-    return grid.interpolate(mass, z, eep, columns=ENVELOPE_OUTPUTS)
+    columns = ENVELOPE_OUTPUTS if columns is None else tuple(columns)
+    unknown = [c for c in columns if c not in ENVELOPE_OUTPUTS]
+    if unknown:
+        raise PrioritizeError(f"convective_envelope: unknown column(s) {unknown}; choose from "
+                              f"{list(ENVELOPE_OUTPUTS)}")
+    return grid.interpolate(mass, z, eep, columns=columns)
 
 
 def envelope_profile(grid, mass, z, eep):
