@@ -146,6 +146,9 @@ def rank(
     config: Optional[Path] = ConfigOpt,
     columns: Optional[list[str]] = ColumnsOpt,
     top: Optional[int] = typer.Option(None, "--top", min=0, help="Rows shown in the terminal."),
+    workers: Optional[int] = typer.Option(None, "--workers", min=1,
+                                          help="Processes that rank batches in parallel (default: the "
+                                               "cores available); the result does not depend on it."),
     overrides: Optional[dict] = None,
 ):
     """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
@@ -153,7 +156,7 @@ def rank(
     Example: prioritize rank candidates.csv -o ranked.parquet --planet-mass 5
     """
     from .catalog.io import catalog_stem, check_output_path, write_table
-    from .engine import rank_table
+    from .engine import available_cores, rank_table
     from .report.terminal import status_summary, top_table
 
     output = check_output_path(output or Path(f"{catalog_stem(catalog)}_ranked.csv"),
@@ -161,7 +164,7 @@ def rank(
     cfg, table, messages = _load(catalog, config, columns, {**overrides, "run.top": top})
     for m in messages:
         typer.echo(f"  {m}", err=True)
-    ranked = rank_table(table, cfg, progress=_progress())
+    ranked = rank_table(table, cfg, progress=_progress(), workers=workers or available_cores())
     write_table(ranked, output, _metadata(cfg, catalog))
     typer.echo(top_table(ranked, cfg.run.top))
     typer.echo("")

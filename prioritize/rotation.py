@@ -1128,23 +1128,30 @@ def rotation_evidence(stage, teff_k, mass_msun, radius_rsun, b_v0, age_samples_m
                                 DEFAULT_VSINI_ERROR_KMS))
         err = np.maximum(err, 0.05)
         known = have & np.isfinite(obs)
-        is_vsini = ~use_veq
-        dens_n = _observed_density(mu, s, w, is_vsini)
-        like_n, cdf = _likelihood_and_cdf(dens_n, np.nan_to_num(obs), err)
-        m = np.exp(mu)
-        like_e = np.zeros(like_n.shape)
-        for multiple, weight in zip(SPIN_UP_MULTIPLES, SPIN_UP_WEIGHTS):
-            mu_e = np.log(m + multiple * np.nan_to_num(dv[sl])[:, None])
-            like_e += weight * _likelihood_and_cdf(_observed_density(mu_e, s, w, is_vsini),
-                                                   np.nan_to_num(obs), err)[0]
         wvis = _spin_visible(stage[sl], bv[sl], teff[sl], radius[sl], q50, np.nan_to_num(dv[sl]), life[sl])
-        g = (wvis * like_e + (1 - wvis) * like_n) / np.maximum(like_n, 1e-300)
-        f = other_cause_fraction
-        lr = g / ((1 - f) + f * g)
-        anom = np.clip(norm.ppf(np.clip(cdf, 1e-300, 1 - 1e-16)), -ANOMALY_CLIP_SIGMA, ANOMALY_CLIP_SIGMA)
-        out["anom"][sl] = np.where(known, anom, np.nan)
-        out["lr"][sl] = np.where(known & np.isfinite(lr), lr, 1.0)
         out["wvis"][sl] = np.where(have, wvis, np.nan)
+        # the likelihoods only where there is an observation to weigh (the rest: LR 1)
+        k = np.flatnonzero(known)
+        lr = np.ones(known.size)
+        anom = np.full(known.size, np.nan)
+        if k.size:
+            obs_k, err_k, dv_k = np.nan_to_num(obs[k]), err[k], np.nan_to_num(dv[sl][k])
+            mu_k, s_k, w_k, is_vsini = mu[k], s[k], w[k], ~use_veq[k]
+            like_n, cdf = _likelihood_and_cdf(_observed_density(mu_k, s_k, w_k, is_vsini), obs_k, err_k)
+            m = np.exp(mu_k)
+            like_e = np.zeros(like_n.shape)
+            for multiple, weight in zip(SPIN_UP_MULTIPLES, SPIN_UP_WEIGHTS):
+                mu_e = np.log(m + multiple * dv_k[:, None])
+                like_e += weight * _likelihood_and_cdf(_observed_density(mu_e, s_k, w_k, is_vsini),
+                                                       obs_k, err_k)[0]
+            g = (wvis[k] * like_e + (1 - wvis[k]) * like_n) / np.maximum(like_n, 1e-300)
+            f = other_cause_fraction
+            lr_k = g / ((1 - f) + f * g)
+            anom[k] = np.clip(norm.ppf(np.clip(cdf, 1e-300, 1 - 1e-16)), -ANOMALY_CLIP_SIGMA,
+                              ANOMALY_CLIP_SIGMA)
+            lr[k] = np.where(np.isfinite(lr_k), lr_k, 1.0)
+        out["anom"][sl] = anom
+        out["lr"][sl] = lr
     return RotationEvidence(out["exp"], out["spread"], source, out["anom"], out["lr"], out["wvis"])
 
 
