@@ -14,12 +14,9 @@ from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
-import numpy as np
 import typer
 
 from .. import CAUTION
-from ..catalog.status import OK
-from ..catalog.io import companion_path
 from ..console import one_line_errors
 from ..errors import CatalogError, PrioritizeError
 
@@ -52,6 +49,8 @@ def _parse_date(text: str, option: str) -> dt.date:
 
 def _read_targets(path: Path, priority_column: Optional[str]):
     """The table and its star_id, ra_deg, dec_deg, priority and skip reasons."""
+    import numpy as np
+    from ..catalog.status import OK
     from ..catalog.io import read_table
 
     table, _metadata = read_table(path)
@@ -89,6 +88,7 @@ def _canonical_positions(table):
 
 def _numeric(table, column: str) -> np.ndarray:
     """A column as floats; text that is not a number becomes NaN (reported per row downstream)."""
+    import numpy as np
     import pandas as pd
 
     return pd.to_numeric(table[column], errors="coerce").to_numpy(dtype=float)
@@ -106,12 +106,14 @@ def _atomic_write(path: Path, write) -> None:
 
 
 def _local(mjd: float, zone) -> str:
+    import numpy as np
     from .offline import mjd_to_datetime
 
     return "" if not np.isfinite(mjd) else f"{mjd_to_datetime(mjd, zone):%Y-%m-%d %H:%M:%S %Z}"
 
 
 def _utc(mjd: float) -> str:
+    import numpy as np
     from .offline import mjd_to_datetime
 
     return "" if not np.isfinite(mjd) else f"{mjd_to_datetime(mjd):%Y-%m-%dT%H:%M:%S}"
@@ -161,6 +163,8 @@ def night_command(
     Times are planning estimates (about a minute); the observatory's own tools,
     rules and safety practice prevail.
     """
+    import numpy as np
+    from ..catalog.io import companion_path
     with one_line_errors():
         from .schedule import SCHEDULED, STATUS_NOT_OK, plan_night
         from .sites import load_site
@@ -200,6 +204,7 @@ def night_command(
 
 
 def _night_table(table, priority, exposure_s, keep, plan, site, scheduled, status_not_ok):
+    import numpy as np
     import pandas as pd
 
     n = len(table)
@@ -235,6 +240,7 @@ def _night_table(table, priority, exposure_s, keep, plan, site, scheduled, statu
 
 
 def _night_text(result, plan, site, airmass_max, moon_min_sep, overhead, scheduled) -> str:
+    import numpy as np
     zone = site.zone
     ev = plan.events
 
@@ -282,6 +288,7 @@ def _night_text(result, plan, site, airmass_max, moon_min_sep, overhead, schedul
 
 def _night_figure(plan, site, ra_deg, dec_deg, airmass_max):
     """Altitude against local time of the planned targets, their slots drawn thick."""
+    import numpy as np
     from matplotlib import colormaps
     from matplotlib.dates import DateFormatter
     from matplotlib.figure import Figure
@@ -371,6 +378,9 @@ def season_command(
     Hours are planning estimates: weather, telescope limits and other programmes
     are not modelled; the observatory's own tools and rules prevail.
     """
+    import numpy as np
+    from ..catalog.status import OK
+    from ..catalog.io import companion_path
     with one_line_errors():
         import pandas as pd
 
@@ -422,6 +432,8 @@ def season_command(
 
 
 def _season_figure(result, season, site, first, last, airmass_max, priority):
+    import numpy as np
+    from ..catalog.status import OK
     from matplotlib.figure import Figure
 
     computed = result[result["reason"] == OK]
