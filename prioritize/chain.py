@@ -47,7 +47,7 @@ OTHER_PLANET_PREFIXES = ("z_enrich_", "p_detect_", "lifetime_myr_")  # + "<mass>
 HISTORY_NODES = 48           # points sampled along the past track for the deepest envelope so far
 TABLE_MASS_SPLIT = 2         # table of the deepest envelope: the grid's mass steps halved
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
-LIFETIME_CHUNK = 2000        # stars per chunk when following tracks into the future
+LIFETIME_CHUNK = 500         # stars per chunk when following tracks into the future (~120 MB)
 EARLY_EEP_STEPS = (0.001, 0.003, 0.01, 0.03, 0.1, 0.3)  # sub-steps after the present point
 PRESERVED_MASS_EEPS = (0.0, 50.0, 100.0, 150.0)  # main-sequence points searched for the Li-preserving layer
 TURNOFF_EEP = PHASE_EEPS["main_sequence"][0] + evolution.TURNOFF_FRACTION * (
