@@ -146,14 +146,17 @@ def _place(df, params, route, grid, cfg, rng):
     logl, logl_err = params["logl_lsun"].to_numpy(float), params["logl_lsun_err"].to_numpy(float)
     feh, feh_err = params["feh"].to_numpy(float), params["feh_err"].to_numpy(float)
     logg, logg_err = _column(df, "logg"), _column(df, "logg_err")
-    for name in ("mass+stage", "cluster isochrone", "posterior"):
-        rows = np.flatnonzero(np.isin(route, ("Teff+L", "Teff+logg")) if name == "posterior"
+    seismic_mass, seismic_mass_err = _column(df, "seismic_mass_msun"), _column(df, "seismic_mass_err_msun")
+    for name in ("mass+stage", "asteroseismic+stage", "cluster isochrone", "posterior"):
+        rows = np.flatnonzero(np.isin(route, ("Teff+L", "Teff+logg", "asteroseismic")) if name == "posterior"
                               else route == name)
         if rows.size == 0:
             continue
-        if name == "mass+stage":
+        if name in ("mass+stage", "asteroseismic+stage"):
+            given = name == "mass+stage"
             p = placement.place_by_mass_stage(
-                grid, _column(df, "mass_msun")[rows], _column(df, "mass_msun_err")[rows],
+                grid, (_column(df, "mass_msun") if given else seismic_mass)[rows],
+                (_column(df, "mass_msun_err") if given else seismic_mass_err)[rows],
                 _column(df, "stage", object)[rows], feh[rows], placement._subset(rng, rows), s,
                 teff=teff[rows], teff_err=teff_err[rows], logg=logg[rows], logg_err=logg_err[rows],
                 logl=logl[rows], logl_err=logl_err[rows])
@@ -166,7 +169,7 @@ def _place(df, params, route, grid, cfg, rng):
                                              logl_err[rows], logg[rows], logg_err[rows], feh[rows],
                                              feh_err[rows], placement._subset(rng, rows), s)
         redo = np.zeros(0, int)
-        if name == "mass+stage":
+        if name in ("mass+stage", "asteroseismic+stage"):
             p, redo = _stage_contradicted_by_l(grid, p, rows, teff, logl, logl_err, s)
         placed[rows] = p.placed
         note[rows] = _append(note[rows], p.note)
@@ -182,6 +185,35 @@ def _place(df, params, route, grid, cfg, rng):
     else:
         star = mass = z = eep = np.zeros(0)
     return star.astype(int), mass, z, eep, placed, note, chi2
+
+
+def _with_seismic_parameters(df, params, route, cfg):
+    """Rows placed by an asteroseismic route take the scaling relations' log g (where
+    the catalog gives none), radius and L (where the catalog gives no log L), with the
+    source recorded; the chain then places and reports them from these."""
+    from .stars.seismology import scaling_relations
+    rows = np.isin(route, ("asteroseismic+stage", "asteroseismic"))
+    if not rows.any():
+        return df, params
+    clump = _column(df, "stage", object) == "red_clump"
+    f = np.where(clump, cfg.seismology.f_dnu_clump, cfg.seismology.f_dnu_rgb)
+    seis = scaling_relations(_column(df, "numax_uhz"), _column(df, "dnu_uhz"), params["teff_k"].to_numpy(float),
+                             _column(df, "numax_uhz_err"), _column(df, "dnu_uhz_err"),
+                             params["teff_k_err"].to_numpy(float), f)
+    df, params = df.copy(), params.copy()
+    df["seismic_mass_msun"], df["seismic_mass_err_msun"] = seis.mass_msun, seis.mass_err_msun
+    logg = _column(df, "logg")
+    fill_g = rows & ~np.isfinite(logg)
+    df["logg"] = np.where(fill_g, seis.logg, logg)
+    df["logg_err"] = np.where(fill_g, seis.logg_err, _column(df, "logg_err"))
+    fill_l = rows & (params["logl_source"].to_numpy(object) != "catalog")
+    for column, value in (("logl_lsun", seis.logl_lsun), ("logl_lsun_err", seis.logl_err),
+                          ("radius_rsun", seis.radius_rsun)):
+        params[column] = np.where(fill_l, value, params[column].to_numpy(float))
+    params["logl_source"] = np.where(fill_l, "asteroseismic R + Teff", params["logl_source"].to_numpy(object))
+    params["radius_source"] = np.where(fill_l, "asteroseismic scaling relations",
+                                       params["radius_source"].to_numpy(object))
+    return df, params
 
 
 STAGE_L_CONTRADICTION_SIGMA = 5.0   # given stage vs measured log L: beyond this ...
@@ -608,6 +640,7 @@ def _run_batch(df, cfg, grid, rng, reference):
                                     "Teff/colour with parallax, distance, log L or logg"),
                             np.asarray(why, dtype=object)[missing] if len(why) else "")
     route = np.where(active & ~missing, route, "")
+    df, params = _with_seismic_parameters(df, params, route, cfg)
 
     star, mass, z, eep, placed, pnote, chi2 = _place(df, params, route, grid, cfg, rng)
     note = _append(note, pnote)

@@ -132,6 +132,18 @@ class ObservingConfig:
 
 
 @dataclass(frozen=True)
+class SeismologyConfig:
+    """Asteroseismic scaling relations (prioritize/stars/seismology.py)."""
+
+    f_dnu_rgb: float = _spec(1.0, lo=0.8, hi=1.2,
+                             doc="correction factor on Delta nu for red-giant-branch stars and "
+                                 "unclassified ones (Delta nu / f is scaled to the Sun)")
+    f_dnu_clump: float = _spec(1.0, lo=0.8, hi=1.2,
+                               doc="correction factor on Delta nu for red-clump (core helium "
+                                   "burning) stars")
+
+
+@dataclass(frozen=True)
 class RunConfig:
     """Batching."""
 
@@ -152,6 +164,7 @@ class Config:
     cluster: ClusterConfig = field(default_factory=ClusterConfig)
     rotation: RotationConfig = field(default_factory=RotationConfig)
     observing: ObservingConfig = field(default_factory=ObservingConfig)
+    seismology: SeismologyConfig = field(default_factory=SeismologyConfig)
     run: RunConfig = field(default_factory=RunConfig)
     columns: dict = field(default_factory=dict)
 

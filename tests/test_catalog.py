@@ -31,7 +31,8 @@ COERCION_RTOL = 0.0                  # exact: float(text) is what pandas.to_nume
 BRIEF_COLUMNS = (
     "star_id ra_deg dec_deg g_mag g_mag_err bp_mag rp_mag bp_rp bp_rp_err v_mag v_mag_err b_v b_v_err "
     "r_mag parallax_mas parallax_mas_err distance_pc ebv ebv_err ebp_rp a_g_ext teff_k teff_k_err logg logg_err "
-    "logl_lsun logl_lsun_err feh feh_err mass_msun mass_msun_err stage prot_d prot_d_err vsini_kms "
+    "logl_lsun logl_lsun_err feh feh_err mass_msun mass_msun_err numax_uhz numax_uhz_err dnu_uhz dnu_uhz_err "
+    "stage prot_d prot_d_err vsini_kms "
     "vsini_kms_err a_li a_li_err a_li_is_limit cluster cluster_age_gyr cluster_feh cluster_distance_pc "
     "cluster_ebv member_prob").split()
 

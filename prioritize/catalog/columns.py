@@ -162,6 +162,12 @@ _INPUT_SPECS: tuple[ColumnSpec, ...] = (
                                      "metallicity"))),
     *_with_error(ColumnSpec("mass_msun", FLOAT, "Msun", "stellar mass", lo=0.0, hi=100.0,
                             lo_inclusive=False, aliases=("mass", "m", "mstar", "m_star", "mass_flame"))),
+    *_with_error(ColumnSpec("numax_uhz", FLOAT, "uHz", "frequency of maximum oscillation power nu_max "
+                            "(asteroseismic)", lo=0.0, hi=10000.0, lo_inclusive=False,
+                            aliases=("numax", "nu_max", "numax_muhz", "nu_max_uhz", "vmax"))),
+    *_with_error(ColumnSpec("dnu_uhz", FLOAT, "uHz", "large frequency separation Delta nu (asteroseismic)",
+                            lo=0.0, hi=500.0, lo_inclusive=False,
+                            aliases=("dnu", "delta_nu", "deltanu", "dnu_muhz", "delnu", "large_separation"))),
     ColumnSpec("stage", TEXT, "", "evolutionary stage (main_sequence, turnoff, subgiant, "
                "lower_giant_branch, upper_giant_branch, red_clump, or a short form such as rgb, rc)",
                aliases=("evol_stage", "evstage", "evolutionary_stage", "phase", "evstate", "evolstate",

@@ -25,11 +25,14 @@ from prioritize.errors import CatalogError, ConfigError
 from prioritize.stars.photometry import MAX_PARALLAX_REL_ERR, derive_stellar_parameters
 
 ROUTE_MASS_STAGE = "mass+stage"
+ROUTE_SEISMIC_STAGE = "asteroseismic+stage"
+ROUTE_SEISMIC = "asteroseismic"
 ROUTE_CLUSTER = "cluster isochrone"
 ROUTE_TEFF_L = "Teff+L"
 ROUTE_TEFF_LOGG = "Teff+logg"
 ROUTE_NONE = "nothing"
-ROUTES = (ROUTE_MASS_STAGE, ROUTE_CLUSTER, ROUTE_TEFF_L, ROUTE_TEFF_LOGG, ROUTE_NONE)
+ROUTES = (ROUTE_MASS_STAGE, ROUTE_SEISMIC_STAGE, ROUTE_SEISMIC, ROUTE_CLUSTER, ROUTE_TEFF_L,
+          ROUTE_TEFF_LOGG, ROUTE_NONE)
 """Placement routes in the engine's order of preference."""
 
 CLUSTER_CONTEXT_KEYS = ("age_gyr", "feh", "distance_pc", "ebv")
@@ -190,10 +193,15 @@ def placement_routes(table: pd.DataFrame, params: pd.DataFrame) -> np.ndarray:
     In order of preference:
 
     1. ``mass+stage``: ``mass_msun`` and a known ``stage``;
-    2. ``cluster isochrone``: a cluster age, and the star's Teff and L;
-    3. ``Teff+L``: Teff and L;
-    4. ``Teff+logg``: Teff and the catalog's ``logg``;
-    5. ``nothing``.
+    2. ``asteroseismic+stage``: ``numax_uhz``, ``dnu_uhz``, Teff and a known stage (mass,
+       radius, log g and L from the scaling relations, :mod:`prioritize.stars.seismology`;
+       placed like mass+stage);
+    3. ``asteroseismic``: ``numax_uhz``, ``dnu_uhz`` and Teff without a stage (placed from
+       Teff with the seismic L and log g);
+    4. ``cluster isochrone``: a cluster age, and the star's Teff and L;
+    5. ``Teff+L``: Teff and L;
+    6. ``Teff+logg``: Teff and the catalog's ``logg``;
+    7. ``nothing``.
 
     Teff and L are those of ``params`` — given in the catalog or derived from its
     colours, magnitudes and distance — so a colour outside the range of its
@@ -221,8 +229,10 @@ def placement_routes(table: pd.DataFrame, params: pd.DataFrame) -> np.ndarray:
     logl = np.isfinite(params["logl_lsun"].to_numpy(float))
     logg = np.isfinite(_numbers(table, "logg"))
     age = np.isfinite(_numbers(table, "cluster_age_gyr"))
-    choice = np.select([np.isfinite(mass) & known_stage, age & teff & logl, teff & logl, teff & logg],
-                       [0, 1, 2, 3], default=4)
+    seismic = (_numbers(table, "numax_uhz") > 0) & (_numbers(table, "dnu_uhz") > 0) & teff
+    choice = np.select([np.isfinite(mass) & known_stage, seismic & known_stage, seismic,
+                        age & teff & logl, teff & logl, teff & logg],
+                       [0, 1, 2, 3, 4, 5], default=6)
     return np.array(ROUTES, dtype=object)[choice]
 
 
