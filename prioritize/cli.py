@@ -43,6 +43,8 @@ def _load(catalog: Path, config: Optional[Path], columns: Optional[list[str]], o
     cfg = load_config(config)
     if overrides:
         cfg = with_overrides(cfg, overrides)
+    from .instruments import load_instrument
+    load_instrument(cfg.observing.instrument)      # a bad instrument fails before any work
     mapping = {**cfg.columns, **parse_column_option(columns or [])}
     table, messages = read_catalog(catalog, mapping)
     return cfg, validate_catalog(table, path=str(catalog), cluster_context=_cluster_context(cfg)), \
@@ -126,12 +128,33 @@ def _metadata(cfg, catalog) -> dict:
 
 
 def _progress():
+    """A progress bar on stderr (tqdm) that advances per batch of stars; None when
+    stderr is not a terminal."""
     if not sys.stderr.isatty():
         return None
+    from tqdm import tqdm
+
+    bar = {}
 
     def report(done, total):
-        typer.echo(f"\r  {done}/{total} stars", err=True, nl=done >= total)
+        if "bar" not in bar:
+            bar["bar"] = tqdm(total=total, unit="star", file=sys.stderr, leave=False, dynamic_ncols=True)
+        bar["bar"].update(done - bar["bar"].n)
+        if done >= total:
+            bar["bar"].close()
     return report
+
+
+def _show_version(value: bool):
+    if value:
+        typer.echo(f"prioritize {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _main(version: bool = typer.Option(False, "--version", callback=_show_version, is_eager=True,
+                                       help="Print the version and exit.")):
+    """Rank planet-engulfment candidates for lithium follow-up."""
 
 
 @app.command()

@@ -123,3 +123,31 @@ def test_rank_with_user_tracks(tmp_path):
     assert result.exit_code == 0, result.output
     row = pd.read_csv(out).iloc[0]
     assert row["status"] == "ok" and 1.0 < row["mass_msun"] < 1.2 and np.isfinite(row["m_cz_msun"])
+
+
+def test_version():
+    from prioritize import __version__
+    result = runner.invoke(app, ["--version"])
+    assert result.exit_code == 0 and result.output.strip() == f"prioritize {__version__}"
+
+
+def test_a_bad_output_type_or_instrument_fails_before_any_work(catalog, tmp_path):
+    result = runner.invoke(app, ["rank", str(catalog), "-o", str(tmp_path / "ranked.xlsx")])
+    assert result.exit_code != 0 and "unknown file type" in result.output
+    result = runner.invoke(app, ["rank", str(catalog), "--instrument", "no-such-spectrograph",
+                                 "-o", str(tmp_path / "r.csv")])
+    assert result.exit_code != 0 and "no-such-spectrograph" in result.output
+    assert not (tmp_path / "r.csv").exists()
+
+
+def test_the_terminal_table_fits_80_columns():
+    from prioritize.report.terminal import top_table
+    row = {"rank": 1.0, "star_id": "Gaia DR3 1234567890123456789", "stage": "lower_giant_branch",
+           "mass_msun": 1.2, "teff_k": 4800.0, "m_cz_msun": 0.8, "a_li_base": 1.1, "delta_a_li": 0.4,
+           "z_enrich": 3.2, "p_detect": 0.7, "lifetime_myr": 120.0, "rot_anomaly_sigma": 1.0,
+           "ew_enriched_mA": 80.0, "snr_needed": 120.0, "exposure_s": 900.0, "priority": 1e-3}
+    text = top_table(pd.DataFrame([row]), 5, width=80)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    assert "det/h" in text and "z" in text.split()
+    wide = top_table(pd.DataFrame([row]), 5, width=200)
+    assert "rot/sig" in wide

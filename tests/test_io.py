@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import gzip
 import json
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -358,3 +359,28 @@ def test_parquet_integer_ids_with_gaps_stay_exact(tmp_path):
     pq.write_table(pa.table({"source_id": ids, "bp_rp": [1.0, 1.1]}), tmp_path / "c.parquet")
     read, _ = read_catalog(tmp_path / "c.parquet")
     assert read["star_id"].tolist() == [GAIA_DR3_SOURCE_ID, "row2"]
+
+
+def test_every_output_unit_is_carried_by_ecsv_votable_and_fits(tmp_path):
+    """Read back with astropy's QTable, every output column with a unit is a Quantity
+    in ECSV and VOTable; in FITS too, except the units the FITS standard cannot write
+    (dex and Jupiter masses), which the column description names instead."""
+    import astropy.units as u
+    from astropy.table import QTable
+
+    from prioritize.catalog.columns import OUTPUT_COLUMNS
+
+    united = {n: c for n, c in OUTPUT_COLUMNS.items() if c.dtype == "float64" and c.unit not in ("", "sigma")}
+    frame = pd.DataFrame({n: [1.0, np.nan] for n in united})
+    frame.insert(0, "star_id", ["a", "b"])
+    for ext, fmt in (("ecsv", "ascii.ecsv"), ("vot", "votable"), ("fits", "fits")):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            table = QTable.read(write_table(frame, tmp_path / f"t.{ext}"), format=fmt)
+        missing = [n for n in united if not isinstance(table[n], u.Quantity)]
+        if ext == "fits":
+            assert all(united[n].unit.startswith("dex") or united[n].unit == "Mjup" for n in missing), missing
+            assert all(f"[{united[n].unit}]" in table[n].description for n in missing)
+        else:
+            assert missing == [], (ext, missing)
+    assert table["priority"].unit == u.Unit("1 / h") and table["exposure_s"].unit == u.s

@@ -333,7 +333,7 @@ def _out(name: str, dtype: str, unit: str, description: str) -> tuple[str, Outpu
 OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("star_id", TEXT, "", "star identifier (as given, or row<N> from the row number)"),
     _out("rank", INT, "", "1 = observe first; rows that could not be computed come last"),
-    _out("priority", FLOAT, "", "priority score, higher is better (a planning estimate)"),
+    _out("priority", FLOAT, "1/h", "expected detections per hour on target, higher is better (a planning estimate)"),
     _out("status", TEXT, "", "ok, or the reason code why the row was not (fully) computed"),
     _out("note", TEXT, "", "what was derived or what to fix, in words"),
     _out("mass_msun", FLOAT, "Msun", "stellar mass from the placement on tracks"),

@@ -72,7 +72,10 @@ _RESERVED = frozenset(OUTPUT_COLUMNS) - frozenset(INPUT_COLUMNS)
 _CONVERTIBLE_UNITS = {"deg": "deg", "mas": "mas", "pc": "pc", "K": "K", "d": "d",
                       "km/s": "km / s", "Gyr": "Gyr", "Msun": "solMass"}
 # Unit strings written into typed outputs (astropy spelling).
-_WRITE_UNITS = {**_CONVERTIBLE_UNITS, "Rsun": "solRad", "Myr": "Myr", "mag": "mag"}
+_WRITE_UNITS = {**_CONVERTIBLE_UNITS, "Rsun": "solRad", "Myr": "Myr", "mag": "mag", "s": "s",
+                "dex": "dex", "dex(Lsun)": "dex(solLum)", "dex(cm s-2)": "dex(cm / s2)",
+                "g/cm3": "g / cm3", "mA": "mAngstrom", "A": "Angstrom", "Mjup": "jupiterMass",
+                "1/h": "1 / h", "uHz": "uHz"}
 
 
 # ----------------------------------------------------------------------------- formats
@@ -949,11 +952,25 @@ def _to_astropy(table: pd.DataFrame, fmt: str):
                     values = np.ma.MaskedArray(text, mask=missing)
         spec = OUTPUT_COLUMNS.get(name) or INPUT_COLUMNS.get(name)
         unit = _WRITE_UNITS.get(spec.unit) if spec is not None else None
+        description = spec.description if spec is not None else None
+        if unit and fmt == "fits" and not _fits_unit(unit):
+            # FITS units have no Jupiter mass and no dex: the unit goes into the description
+            description, unit = f"{description} [{spec.unit}]", None
         kind = MaskedColumn if np.ma.is_masked(values) else Column
-        column = kind(values, name=str(name), unit=u.Unit(unit) if unit else None,
-                      description=spec.description if spec is not None else None)
+        column = kind(values, name=str(name), unit=u.Unit(unit) if unit else None, description=description)
         out.add_column(column)
     return out
+
+
+def _fits_unit(unit: str) -> bool:
+    """Whether the FITS standard's unit syntax can carry ``unit`` (astropy's FITS format)."""
+    import astropy.units as u
+
+    try:
+        u.Unit(unit).to_string(format="fits")
+    except (ValueError, u.UnitsError):
+        return False
+    return True
 
 
 def _read_sidecar(path: Path) -> dict:

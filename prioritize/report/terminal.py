@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import shutil
+
 import pandas as pd
 
 from .. import CAUTION
@@ -26,14 +28,37 @@ def _fmt(value, fmt):
         return str(value)
 
 
-def top_table(table: pd.DataFrame, n: int) -> str:
-    """The first ``n`` ranked rows as an aligned plain-text table."""
-    rows = table[table["rank"].notna()].head(n)
-    header = [label for _, label, _ in TOP_COLUMNS]
-    body = [[_fmt(r.get(col), fmt) for col, _, fmt in TOP_COLUMNS] for r in rows.to_dict("records")]
-    widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(header)]
-    lines = ["  ".join(h.rjust(w) for h, w in zip(header, widths))]
-    lines += ["  ".join(c.rjust(w) for c, w in zip(b, widths)) for b in body]
+# Columns left out first when the table is wider than the terminal (the rest stay).
+DROP_ORDER = ("rot_anomaly_sigma", "m_cz_msun", "ew_enriched_mA", "snr_needed", "a_li_base", "teff_k",
+              "delta_a_li", "lifetime_myr", "mass_msun", "p_detect")
+MIN_WIDTH = 80
+STAR_ID_WIDTH = 20
+
+
+def top_table(table: pd.DataFrame, n: int, width: int | None = None) -> str:
+    """The first ``n`` ranked rows as an aligned plain-text table no wider than
+    ``width`` characters (default: the terminal's width, at least 80); columns of
+    :data:`DROP_ORDER` are left out, in that order, until it fits."""
+    if width is None:
+        width = max(MIN_WIDTH, shutil.get_terminal_size((MIN_WIDTH, 24)).columns)
+    rows = table[table["rank"].notna()].head(n).to_dict("records")
+    columns = list(TOP_COLUMNS)
+
+    def render(columns):
+        header = [label for _, label, _ in columns]
+        body = [[_fmt(r.get(col), fmt)[:STAR_ID_WIDTH] if col == "star_id" else _fmt(r.get(col), fmt)
+                 for col, _, fmt in columns] for r in rows]
+        widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(header)]
+        lines = ["  ".join(h.rjust(w) for h, w in zip(header, widths))]
+        lines += ["  ".join(c.rjust(w) for c, w in zip(b, widths)) for b in body]
+        return lines
+
+    lines = render(columns)
+    for name in DROP_ORDER:
+        if max(map(len, lines)) <= width:
+            break
+        columns = [c for c in columns if c[0] != name]
+        lines = render(columns)
     return "\n".join(lines)
 
 
@@ -46,9 +71,9 @@ def status_summary(table: pd.DataFrame) -> str:
             lines.append(f"  {code:<24} {counts[code]:>7}  {st.DESCRIPTIONS.get(code, '')}")
     ok = table[table["status"] == st.OK]
     if len(ok):
-        lines.append(f"{int((ok['priority'] > 0).sum())} stars with a usable signature "
-                     f"(P(z >= threshold) > 0 and lifetime above the minimum); "
-                     f"{int((ok['p_detect'] >= 0.5).sum())} with P >= 0.5.")
+        lines.append(f"Of {len(ok)} computed stars, {int((ok['p_detect'] >= 0.5).sum())} have "
+                     f"P(z >= threshold) >= 0.5 and {int((ok['priority'] > 0).sum())} a priority above 0 "
+                     "(a signature that lasts, a measurable line rise and an exposure estimate).")
     ranked = table[table["rank"].notna()]
     if len(ranked) and "time_on_target_s" in ranked:
         hours = ranked["time_on_target_s"].to_numpy(float) / 3600.0
