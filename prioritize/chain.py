@@ -40,6 +40,8 @@ ODDS_COLUMNS = ("p_engulfed_history", "planets_swept", "capture_radius_now_rsun"
 DEPOSITION_COLUMNS = ("deposited_fraction_full", "deposited_fraction_ram_pressure",
                       "deposited_fraction_virial", "disruption_radius_ram_rsun",
                       "disruption_radius_virial_rsun")
+MAX_BODY_MJUP = 80.0        # hydrogen-burning limit (~0.075-0.08 Msun, from memory): above it no planet or brown dwarf
+NO_BURNING_MYR = 1e6        # a surface-Li e-folding time beyond 10^6 Myr (70 Hubble times) is written inf
 FEH_BEYOND_GRID_DEX = 0.3   # [Fe/H] further than this (and 3 sigma) beyond the grid: not placed
 BREAKUP_KMS_SOLAR = 436.76  # sqrt(G M_sun / R_sun) in km/s (IAU 2015 nominal GM_sun and R_sun)
 MIN_SCATTER_DEX = 0.05   # no baseline is tighter than a good A(Li) measurement (common practice)
@@ -725,7 +727,7 @@ def _run_batch(df, cfg, grid, rng, reference):
             "baseline_source": li["source"][r, rep], "baseline_n": li["count"][r, rep],
             "model_logg": model["logg"][r, rep],
             **{k: env[k] for k in ENVELOPE_OUTPUT_COLUMNS},
-            "li_burning_timescale_myr": tau / 1e6,
+            "li_burning_timescale_myr": np.where(tau / 1e6 > NO_BURNING_MYR, np.inf, tau / 1e6),
             **dep_cols,
             **_other_planets(grid, mass, z, eep, model, gb, m_cz, m_cz_max, m_pres, rep, mid, cfg,
                              reference, lookup),
@@ -768,6 +770,11 @@ def _run_batch(df, cfg, grid, rng, reference):
             cfg.thresholds.z_signature, compared, out["a_li_scatter"].to_numpy(float),
             np.nan_to_num(out["li_rich_tail_fraction"].to_numpy(float))),
         out["m_cz_msun"], composition) / M_JUP_MSUN
+    beyond = out["m_planet_min_mjup"].to_numpy(float) > MAX_BODY_MJUP
+    out.loc[beyond, "m_planet_min_mjup"] = np.inf
+    out.loc[beyond, "note"] = _append(out.loc[beyond, "note"].to_numpy(object),
+                                      f"no body of the configured kind up to {MAX_BODY_MJUP:g} M_J gives "
+                                      "z >= threshold (m_planet_min_mjup = inf)")
     for col in (*ENVELOPE_OUTPUT_COLUMNS, "li_burning_timescale_myr", *DEPOSITION_COLUMNS,
                 *ODDS_COLUMNS):
         out[col] = _scatter(n, idx, res.get(col), float)

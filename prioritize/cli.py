@@ -36,15 +36,15 @@ ColumnsOpt = typer.Option(None, "--columns",
 
 
 def _load(catalog: Path, config: Optional[Path], columns: Optional[list[str]], overrides=None):
-    from .catalog.io import parse_column_option, read_catalog
-    from .catalog.validate import validate_catalog
     from .config import load_config, with_overrides
+    from .instruments import load_instrument
 
     cfg = load_config(config)
     if overrides:
         cfg = with_overrides(cfg, overrides)
-    from .instruments import load_instrument
     load_instrument(cfg.observing.instrument)      # a bad instrument fails before any work
+    from .catalog.io import parse_column_option, read_catalog
+    from .catalog.validate import validate_catalog
     mapping = {**cfg.columns, **parse_column_option(columns or [])}
     table, messages = read_catalog(catalog, mapping)
     return cfg, validate_catalog(table, path=str(catalog), cluster_context=_cluster_context(cfg)), \
@@ -178,13 +178,14 @@ def rank(
 
     Example: prioritize rank candidates.csv -o ranked.parquet --planet-mass 5
     """
-    from .catalog.io import catalog_stem, check_output_path, write_table
-    from .engine import available_cores, rank_table
-    from .report.terminal import status_summary, top_table
+    from .catalog.formats import catalog_stem, check_output_path
 
     output = check_output_path(output or Path(f"{catalog_stem(catalog)}_ranked.csv"),
                                [catalog] + ([config] if config else []))
     cfg, table, messages = _load(catalog, config, columns, {**overrides, "run.top": top})
+    from .catalog.io import write_table
+    from .engine import available_cores, rank_table   # heavy: imported once the inputs are known to be usable
+    from .report.terminal import status_summary, top_table
     for m in messages:
         typer.echo(f"  {m}", err=True)
     ranked = rank_table(table, cfg, progress=_progress(), workers=workers or available_cores())

@@ -63,8 +63,13 @@ def detections_per_hour(p_engulfed, p_detect, p_measured, time_on_target_s):
 
 def assign_ranks(table: pd.DataFrame) -> pd.DataFrame:
     """Sort computed rows by priority (highest first), then the rest in input order,
-    and number the computed rows 1..n in the ``rank`` column."""
+    and number the computed rows 1..n in the ``rank`` column (a nullable integer:
+    missing for the rows that are not ranked)."""
     ok = (table["status"] == st.OK) & table["priority"].notna()
     ranked = table[ok].sort_values(["priority", "z_enrich"], ascending=False, kind="stable")
-    ranked = ranked.assign(rank=np.arange(1, len(ranked) + 1, dtype=float))
-    return pd.concat([ranked, table[~ok]], ignore_index=True)
+    out = pd.concat([ranked, table[~ok]], ignore_index=True)
+    # whole numbers, empty (not NaN) for rows that are not ranked
+    out["rank"] = pd.array(np.r_[np.arange(1, len(ranked) + 1), np.zeros(int((~ok).sum()), int)],
+                           dtype="Int64")
+    out.loc[len(ranked):, "rank"] = pd.NA
+    return out

@@ -86,7 +86,11 @@ def test_physics_consistency(table):
     z_back = (enriched_abundance(base, cz, m_min[reach], comp) - np.fmax(base, lim)) / sig
     np.testing.assert_allclose(z_back, thr, rtol=1e-9)
     cmp_all = np.fmax(ok["a_li_base"], ok["a_li_detection_limit"]).to_numpy()
-    assert (cmp_all[~reach] + thr * ok["a_li_scatter"].to_numpy()[~reach] >= comp.a_li).all()
+    unreachable = cmp_all + thr * ok["a_li_scatter"].to_numpy() >= comp.a_li
+    assert np.isinf(m_min[unreachable]).all()
+    # the rest of the infinite ones would need more than a brown dwarf (80 M_J) and say so
+    too_big = ~reach & ~unreachable
+    assert all("no body of the configured kind up to 80 M_J" in n for n in ok["note"].to_numpy()[too_big])
     assert (ok["lifetime_p16_myr"] >= 0).all() and (ok["lifetime_p84_myr"] >= 0).all()
     by_id = ok.set_index("star_id")
     assert by_id.loc["subgiant", "teff_source"] == "catalog"

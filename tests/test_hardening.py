@@ -164,7 +164,7 @@ def test_metallicity_far_outside_the_tracks_is_not_ranked(tmp_path):
     assert "outside the track grid" in out.loc["poor", "note"]
     assert np.isnan(out.loc["poor", "priority"]) or out.loc["poor", "priority"] == 0
     assert out.loc["edge", "status"] == "ok"
-    assert out.loc["poor", "rank"] != 1
+    assert pd.isna(out.loc["poor", "rank"])          # not ranked
 
 
 def test_a_truncated_fits_catalog_is_called_truncated(tmp_path):

@@ -352,7 +352,8 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("r_bcz_rsun", FLOAT, "Rsun", "radius of the base of the convective envelope"),
     _out("m_li_preserved_msun", FLOAT, "Msun", "mass above the 2.5 MK isotherm (lithium-preserving layer)"),
     _out("envelope_quality", FLOAT, "", "envelope-integration code of the nearest grid point (see stars/envelope.py)"),
-    _out("li_burning_timescale_myr", FLOAT, "Myr", "e-folding time of surface lithium by 7Li(p,a) at the envelope base"),
+    _out("li_burning_timescale_myr", FLOAT, "Myr", "e-folding time of surface lithium by 7Li(p,a) at the envelope base "
+         "(inf: the base is too cool for burning to matter, beyond 10^6 Myr)"),
     _out("deposition_scenario", TEXT, "", "which deposition scenario the ranking uses (config planet.deposition)"),
     _out("deposited_fraction_full", FLOAT, "", "fraction of the planet mixed into the envelope: all of it"),
     _out("deposited_fraction_ram_pressure", FLOAT, "", "fraction mixed in when ram pressure disrupts the planet (Jia & Spruit 2018)"),
@@ -388,7 +389,8 @@ OUTPUT_COLUMNS: dict[str, OutputColumn] = dict((
     _out("dilution_dex", FLOAT, "dex", "first-dredge-up dilution of the star's own lithium (<= 0)"),
     _out("m_planet_msun", FLOAT, "Msun", "planet mass mixed into the envelope"),
     _out("chi2_best", FLOAT, "", "chi^2 of the best-matching track point (posterior and isochrone routes)"),
-    _out("m_planet_min_mjup", FLOAT, "Mjup", "smallest planet of the configured kind giving z >= threshold (full mixing)"),
+    _out("m_planet_min_mjup", FLOAT, "Mjup", "smallest planet of the configured kind giving z >= threshold (full mixing; "
+         "inf: no body up to 80 M_J can)"),
     _out("z_observed", FLOAT, "sigma", "measured A(Li) above the baseline, in sigma (baseline scatter + measurement error)"),
     _out("z_observed_is_limit", BOOL, "", "the measured A(Li) is an upper limit, so z_observed is an upper bound"),
     _out("m_planet_needed_mjup", FLOAT, "Mjup", "planet of the configured kind that would raise the baseline to the measured A(Li)"),

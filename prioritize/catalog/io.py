@@ -44,21 +44,9 @@ from prioritize import CAUTION, __version__
 from prioritize.catalog.columns import (CONDITIONAL_SPELLINGS, IGNORED_SPELLINGS, INPUT_COLUMNS,
                                         OUTPUT_COLUMNS, SECONDARY_SPELLINGS, TEXT, check_column_map,
                                         recognise, row_number_ids)
+from prioritize.catalog.formats import (_FORMAT_NAMES, ACCEPTED_FORMATS, catalog_stem,  # noqa: F401
+                                        check_output_path, companion_path, table_format)
 from prioritize.errors import CatalogError, ConfigError
-
-ACCEPTED_FORMATS = ("CSV (.csv, .csv.gz, .tsv), Parquet (.parquet, .pq), FITS (.fits, .fit, "
-                    ".fits.gz; first table extension), ECSV (.ecsv), VOTable (.vot, .votable, .xml)")
-
-_EXTENSIONS = {
-    ".csv": "csv", ".csv.gz": "csv", ".tsv": "tsv", ".tsv.gz": "tsv",
-    ".parquet": "parquet", ".pq": "parquet",
-    ".fits": "fits", ".fit": "fits", ".fits.gz": "fits",
-    ".ecsv": "ecsv",
-    ".vot": "votable", ".votable": "votable", ".xml": "votable",
-}
-_WRITABLE = {ext: fmt for ext, fmt in _EXTENSIONS.items() if ext != ".fits.gz"}
-_FORMAT_NAMES = {"csv": "CSV", "tsv": "tab-separated text", "parquet": "Parquet", "fits": "FITS",
-                 "ecsv": "ECSV", "votable": "VOTable"}
 
 METADATA_KEY = "prioritize_metadata"   # Parquet schema key / VOTable INFO name
 FITS_METADATA_KEYWORD = "PRMETA"       # FITS header keyword (long string, CONTINUE cards)
@@ -67,6 +55,8 @@ SIDECAR_SUFFIX = ".meta.json"
 _TEXT_COLUMNS = frozenset([n for n, s in INPUT_COLUMNS.items() if s.dtype == TEXT]
                           + [n for n, s in OUTPUT_COLUMNS.items() if s.dtype == TEXT])
 _RESERVED = frozenset(OUTPUT_COLUMNS) - frozenset(INPUT_COLUMNS)
+# Whole-number output columns with gaps (rank; a night plan's order): nullable integers.
+_INTEGER_COLUMNS = frozenset([n for n, s in OUTPUT_COLUMNS.items() if s.dtype == "int64"] + ["order"])
 
 # Units a typed file (FITS, ECSV, VOTable) may declare and that are converted on reading.
 _CONVERTIBLE_UNITS = {"deg": "deg", "mas": "mas", "pc": "pc", "K": "K", "d": "d",
@@ -79,57 +69,6 @@ _WRITE_UNITS = {**_CONVERTIBLE_UNITS, "Rsun": "solRad", "Myr": "Myr", "mag": "ma
 
 
 # ----------------------------------------------------------------------------- formats
-
-def catalog_stem(path: str | os.PathLike) -> str:
-    """The file name without its catalog extension: ``a.b.csv`` -> ``a.b``,
-    ``stars.csv.gz`` -> ``stars`` (unknown extensions: the name without its last suffix)."""
-    name = Path(path).name
-    for ext in sorted(_EXTENSIONS, key=len, reverse=True):
-        if name.lower().endswith(ext):
-            return name[: -len(ext)] or name
-    return Path(name).stem
-
-
-def check_output_path(output: str | os.PathLike, inputs=()) -> Path:
-    """Refuse an output path before any work is done: an unknown extension, a missing
-    or unwritable folder, or a path that is one of the ``inputs`` (the catalog would be
-    overwritten)."""
-    output = Path(output)
-    table_format(output, writing=True)
-    if not output.parent.is_dir():
-        raise CatalogError(f"cannot be written: folder {output.parent} does not exist", path=str(output))
-    if not os.access(output.parent, os.W_OK):
-        raise CatalogError(f"cannot be written: folder {output.parent} is not writable", path=str(output))
-    for given in inputs:
-        try:
-            same = output.resolve() == Path(given).resolve() or (
-                output.exists() and os.path.samefile(output, given))
-        except OSError:
-            same = False
-        if same:
-            raise CatalogError("is the input catalog: choose another output path (-o) so the "
-                               "catalog is not overwritten", path=str(output))
-    return output
-
-
-def table_format(path: str | os.PathLike, writing: bool = False) -> str:
-    """The format key (``csv``, ``tsv``, ``parquet``, ``fits``, ``ecsv``, ``votable``)
-    from a file name's extension.
-
-    Raises
-    ------
-    CatalogError
-        The extension is not one of the accepted ones.
-    """
-    name = Path(path).name.lower()
-    table = _WRITABLE if writing else _EXTENSIONS
-    for ext in sorted(table, key=len, reverse=True):
-        if name.endswith(ext):
-            return table[ext]
-    accepted = ", ".join(sorted(table))
-    raise CatalogError(f"unknown file type; use one of the extensions {accepted} "
-                       f"({ACCEPTED_FORMATS})", path=str(path))
-
 
 # ----------------------------------------------------------------------------- reading
 
@@ -598,6 +537,9 @@ def _normalise(frame: pd.DataFrame, id_column: str | None) -> pd.DataFrame:
             dtype = series.dtype
         if name == id_column or name in _TEXT_COLUMNS:
             out[name] = _as_text(series)
+        elif name in _INTEGER_COLUMNS and pd.api.types.is_numeric_dtype(dtype) and not \
+                pd.api.types.is_bool_dtype(dtype) and _whole(series):
+            out[name] = series.astype("Int64")
         elif isinstance(dtype, pd.BooleanDtype):
             out[name] = (series.astype(bool) if not series.isna().any()
                          else series.astype(object).where(series.notna(), np.nan))
@@ -609,6 +551,12 @@ def _normalise(frame: pd.DataFrame, id_column: str | None) -> pd.DataFrame:
         else:
             out[name] = series
     return pd.DataFrame(out, index=frame.index)
+
+
+def _whole(series: pd.Series) -> bool:
+    values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    present = values[np.isfinite(values)]
+    return bool(np.all(present == np.round(present)))
 
 
 def _as_text(series: pd.Series) -> pd.Series:
@@ -934,6 +882,8 @@ def _to_astropy(table: pd.DataFrame, fmt: str):
         dtype = series.dtype
         if pd.api.types.is_bool_dtype(dtype) and not missing.any():
             values = series.to_numpy(dtype=bool)
+        elif pd.api.types.is_integer_dtype(dtype) and isinstance(dtype, pd.api.extensions.ExtensionDtype):
+            values = np.ma.MaskedArray(series.to_numpy(dtype=np.int64, na_value=0), mask=missing)
         elif pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype):
             values = (series.to_numpy() if not isinstance(dtype, pd.api.extensions.ExtensionDtype)
                       else series.to_numpy(dtype=np.float64, na_value=np.nan))
@@ -981,14 +931,3 @@ def _read_sidecar(path: Path) -> dict:
         return json.loads(sidecar.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
         raise CatalogError(f"metadata sidecar is not readable JSON ({exc})", path=str(sidecar)) from exc
-
-
-def companion_path(output: Path, suffix: str) -> Path:
-    """A file written beside ``output``: ``plan.csv`` -> ``plan.png`` (double extensions
-    such as ``.csv.gz`` are removed whole)."""
-    output = Path(output)
-    name = output.name
-    for ext in (".csv.gz", ".tsv.gz"):
-        if name.lower().endswith(ext):
-            return output.with_name(name[: -len(ext)] + suffix)
-    return output.with_suffix(suffix)

@@ -164,13 +164,16 @@ def night_command(
     rules and safety practice prevail.
     """
     import numpy as np
-    from ..catalog.io import companion_path
+    from ..catalog.formats import companion_path
     with one_line_errors():
-        from .schedule import SCHEDULED, STATUS_NOT_OK, plan_night
         from .sites import load_site
 
         the_site = load_site(site)
         night = _parse_date(date, "--date")
+        if output is not None:
+            from ..catalog.formats import check_output_path
+            check_output_path(output, [ranked])        # a bad output fails before the plan is made
+        from .schedule import SCHEDULED, STATUS_NOT_OK, plan_night
         table, numbers, skip = _read_targets(ranked, priority_column)
         if "exposure_s" in table.columns:
             exposure_s = _numeric(table, "exposure_s")
@@ -380,14 +383,18 @@ def season_command(
     """
     import numpy as np
     from ..catalog.status import OK
-    from ..catalog.io import companion_path
+    from ..catalog.formats import companion_path
     with one_line_errors():
-        import pandas as pd
-
-        from .season import season_hours, semester_dates
         from .sites import load_site
 
         the_site = load_site(site)
+        if output is not None:
+            from ..catalog.formats import check_output_path
+            check_output_path(output, [ranked])        # a bad output fails before the season is computed
+        import pandas as pd
+
+        from .season import season_hours, semester_dates
+
         if semester is not None and (start or end):
             raise PrioritizeError("give either --semester or --start and --end, not both")
         if semester is not None:

@@ -20,11 +20,13 @@ import zoneinfo
 from dataclasses import dataclass
 from pathlib import Path
 
-import astropy.units as u
-from astropy.coordinates import EarthLocation
+from typing import TYPE_CHECKING
 
 from ..config import _read_toml
 from ..errors import ConfigError
+
+if TYPE_CHECKING:
+    from astropy.coordinates import EarthLocation
 
 SITES_DIR = Path(__file__).resolve().parents[2] / "configs" / "sites"
 
@@ -83,6 +85,9 @@ class Site:
     @property
     def location(self) -> EarthLocation:
         """The site as an astropy EarthLocation (WGS84)."""
+        import astropy.units as u
+        from astropy.coordinates import EarthLocation
+
         return EarthLocation.from_geodetic(self.longitude_deg * u.deg, self.latitude_deg * u.deg,
                                            self.height_m * u.m)
 
