@@ -151,3 +151,8 @@ def test_the_terminal_table_fits_80_columns():
     assert "det/h" in text and "z" in text.split()
     wide = top_table(pd.DataFrame([row]), 5, width=200)
     assert "rot/sig" in wide
+    from prioritize.report.terminal import status_summary
+    summary = status_summary(pd.DataFrame([{**row, "status": "duplicate_id", "time_on_target_s": 1000.0,
+                                            "instrument": "echelle-4m"}]), width=80)
+    assert max(len(line) for line in summary.splitlines()) <= 80
+    assert "only the first copy is computed" in " ".join(summary.split())

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import shutil
+import textwrap
 
 import pandas as pd
 
@@ -62,8 +63,11 @@ def top_table(table: pd.DataFrame, n: int, width: int | None = None) -> str:
     return "\n".join(lines)
 
 
-def status_summary(table: pd.DataFrame) -> str:
-    """Counts per status, with what each code means, and the signature tally."""
+def status_summary(table: pd.DataFrame, width: int | None = None) -> str:
+    """Counts per status, with what each code means, and the signature tally; the
+    sentences are wrapped to ``width`` (default: the terminal's width, at least 80)."""
+    if width is None:
+        width = max(MIN_WIDTH, shutil.get_terminal_size((MIN_WIDTH, 24)).columns)
     counts = table["status"].value_counts()
     lines = [f"{len(table)} stars read; status counts:"]
     for code in list(st.ALL) + sorted(set(counts.index) - set(st.ALL)):
@@ -82,4 +86,5 @@ def status_summary(table: pd.DataFrame) -> str:
                      f"top 50 {hours[:50].sum():.1f} h, all ranked {hours.sum():.1f} h; "
                      f"expected detections in the top 10: {ranked['priority'].to_numpy(float)[:10].dot(hours[:10]):.2g}.")
     lines.append(f"Caution: {CAUTION}")
-    return "\n".join(lines)
+    return "\n".join(textwrap.fill(line, width, subsequent_indent=" " * 36 if line.startswith("  ") else "  ",
+                                   ) if len(line) > width else line for line in lines)
