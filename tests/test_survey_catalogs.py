@@ -152,3 +152,13 @@ def test_a_v_only_star_gets_an_exposure_and_says_how():
     assert np.isfinite(out["exposure_s"].iloc[0]) and out["rank"].iloc[0] == 1
     assert out["r_c_source"].iloc[0] == "V+B-V from Teff (Casagrande et al. 2010)"
     assert "R_C for the exposure from V+B-V from Teff (Casagrande et al. 2010)" in out["note"].iloc[0]
+
+
+def test_gaia_percentiles_give_the_error_of_a_gspphot_value(tmp_path):
+    """Gaia DR3 gives teff_gspphot with its 16th and 84th percentiles
+    (teff_gspphot_lower / _upper); half their span is the 1-sigma error."""
+    path = tmp_path / "gaia.csv"
+    path.write_text("source_id,teff_gspphot,teff_gspphot_lower,teff_gspphot_upper\n7,5000,4900,5160\n")
+    table, messages = read_catalog(path)
+    assert table["teff_k"].iloc[0] == 5000 and table["teff_k_err"].iloc[0] == 130.0
+    assert any("teff_k_err = half the span" in m for m in messages)

@@ -106,6 +106,7 @@ SECTIONS: tuple[tuple[str, tuple[Shown, ...]], ...] = (
         Shown("Delta EW", "delta_ew_mA", "{:.1f}", "mA"),
         Shown("Delta EW clears the systematic floor", "delta_ew_measurable", "{}"), Shown("line FWHM", "line_fwhm_A", "{:.3f}", "A"),
         Shown("S/N per pixel needed", "snr_needed", "{:.0f}"), Shown("R_C", "r_c_mag", "{:.2f}", "mag"),
+        Shown("R_C from", "r_c_source", "{}"),
         Shown("exposure", "exposure_s", "{:.0f}", "s"), Shown("exposure limit", "exposure_flag", "{}"),
         Shown("S/N reached", "snr_at_exposure", "{:.0f}"), Shown("overhead", "overhead_s", "{:.0f}", "s"),
         Shown("lines to take", "lines_to_measure", "{}"),
