@@ -770,7 +770,9 @@ def _run_batch(df, cfg, grid, rng, reference):
             cfg.thresholds.z_signature, compared, out["a_li_scatter"].to_numpy(float),
             np.nan_to_num(out["li_rich_tail_fraction"].to_numpy(float))),
         out["m_cz_msun"], composition) / M_JUP_MSUN
-    beyond = out["m_planet_min_mjup"].to_numpy(float) > MAX_BODY_MJUP
+    computed = np.isfinite(out["a_li_base"].to_numpy(float)) & np.isfinite(out["m_cz_msun"].to_numpy(float))
+    out.loc[~computed, "m_planet_min_mjup"] = np.nan           # not placed: nothing to say
+    beyond = computed & (out["m_planet_min_mjup"].to_numpy(float) > MAX_BODY_MJUP)
     out.loc[beyond, "m_planet_min_mjup"] = np.inf
     out.loc[beyond, "note"] = _append(out.loc[beyond, "note"].to_numpy(object),
                                       f"no body of the configured kind up to {MAX_BODY_MJUP:g} M_J gives "

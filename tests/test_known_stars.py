@@ -119,3 +119,19 @@ def test_mixture_age_quantiles_against_sampling():
     half = rot.mixture_age_quantiles(post, [0.5], q)[0]
     draws = np.concatenate([rng.choice(post[0], 200_000), rng.uniform(lo, hi, 200_000)])
     assert np.allclose(np.log(half), np.log(np.quantile(draws, q)), atol=0.05)
+
+
+def test_stars_outside_the_grid_say_where_and_carry_no_planet_numbers():
+    """An M dwarf (3700 K, log g 4.8; below the grid's 0.70 Msun) and a metal-poor halo
+    giant ([Fe/H] -1.5; below the grid's metallicities) are out_of_model_range, the note
+    says which edge, and no planet number is given for a star that was not placed."""
+    rows = [dict(star_id="m_dwarf", v_mag=11.0, b_v=1.5, parallax_mas=100.0, ebv=0.0, teff_k=3700,
+                 teff_k_err=80, logg=4.8, logg_err=0.1, feh=0.0, feh_err=0.1, prot_d=30.0),
+            dict(star_id="halo_giant", v_mag=10.0, b_v=1.1, parallax_mas=0.5, ebv=0.02, teff_k=4600,
+                 teff_k_err=80, logg=1.8, logg_err=0.15, feh=-1.5, feh_err=0.1, vsini_kms=5.0)]
+    out = rank_table(validate_catalog(pd.DataFrame(rows)), Config()).set_index("star_id")
+    assert (out["status"] == st.OUT_OF_MODEL_RANGE).all()
+    assert "lowest mass" in out.loc["m_dwarf", "note"]
+    assert "outside the track grid" in out.loc["halo_giant", "note"]
+    assert out["m_planet_min_mjup"].isna().all()
+    assert not out["note"].str.contains("no body of the configured kind").any()

@@ -453,6 +453,7 @@ def place_by_posterior(grid: TrackGrid, teff, teff_err, logl, logl_err, logg, lo
     use_l = np.isfinite(logl)
     chi2_min = np.full(n, np.nan)
     samples = np.full((n, n_samples), -1, dtype=np.int64)
+    best_mass = np.full(n, np.nan)
     lt = np.log10(teff)
     slt = t_err / (teff * np.log(10))
     for flag, tree, col, vals, errs, default, sc in (
@@ -477,14 +478,22 @@ def place_by_posterior(grid: TrackGrid, teff, teff_err, logl, logl_err, logg, lo
             chi2 = (((model - obs[part, None, :]) / sig[part, None, :]) ** 2).sum(axis=2)
             best = chi2.min(axis=1)
             chi2_min[rows[part]] = best
+            best_mass[rows[part]] = dense.mass[idx[np.arange(idx.shape[0]), chi2.argmin(axis=1)]]
             logw = -0.5 * chi2 + dense.log_prior[idx]
             logw -= logw.max(axis=1, keepdims=True)
             pick = _resample(np.exp(logw), n_samples, _subset(rng, rows[part]))
             samples[rows[part]] = np.take_along_axis(idx, pick, axis=1)
     placed = np.isfinite(chi2_min) & (chi2_min <= CHI2_LIMIT)
     far = np.isfinite(chi2_min) & ~placed
-    note[far] = _join(note[far], [f"no track point within 5 sigma (nearest at {d:.1f} sigma)"
-                                  for d in np.sqrt(chi2_min[far])])
+    lo_m, hi_m = float(np.min(dense.mass)), float(np.max(dense.mass))
+    edge = np.where(best_mass <= lo_m + 0.01,
+                    f": the nearest model is the grid's lowest mass ({lo_m:.2f} Msun), so the star is "
+                    "probably below the grid (late-K or M dwarf, or check Teff and L)",
+                    np.where(best_mass >= hi_m - 0.01,
+                             f": the nearest model is the grid's highest mass ({hi_m:.2f} Msun), so the "
+                             "star is probably above the grid (or check Teff and L)", ""))
+    note[far] = _join(note[far], [f"no track point within 5 sigma (nearest at {d:.1f} sigma){w}"
+                                  for d, w in zip(np.sqrt(chi2_min[far]), edge[far])])
     chosen = samples[placed].ravel()
     return Placement(np.repeat(np.flatnonzero(placed), n_samples), dense.mass[chosen],
                      dense.z[chosen], dense.eep[chosen], placed, note, chi2_min)
