@@ -55,17 +55,23 @@ def _random_instance(seed: int, n: int = 60, m: int = 200):
     return ok, duration, priority
 
 
+def _length(duration, i, s) -> int:
+    """Slot length of target i starting at s, for per-target (n,) or per-start (n, m) durations."""
+    d = np.asarray(duration)
+    return int(d[i, s] if d.ndim == 2 else d[i])
+
+
 def _occupied(start, duration, m, which) -> np.ndarray:
     busy = np.zeros(m - 1, dtype=bool)
     for i in which:
         if start[i] >= 0:
-            busy[start[i]:start[i] + duration[i]] = True
+            busy[start[i]:start[i] + _length(duration, i, start[i])] = True
     return busy
 
 
 def _fits_somewhere(i, start_ok, duration, busy) -> bool:
     m = start_ok.shape[1]
-    return any(start_ok[i, s] and not busy[s:s + duration[i]].any() for s in range(m - duration[i]))
+    return any(start_ok[i, s] and not busy[s:s + _length(duration, i, s)].any() for s in range(m - 1))
 
 
 def _assert_no_overlap_and_feasible(start, duration, start_ok):
@@ -175,7 +181,7 @@ def random_plan():
     targets = pd.concat([targets, _special_targets()], ignore_index=True)
     plan = sc.plan_night(SITE, NIGHT, targets["ra_deg"], targets["dec_deg"], targets["priority"],
                          targets["exposure_s"], overhead_s=300.0, airmass_max=2.0, moon_min_sep_deg=30.0,
-                         twilight="nautical")
+                         twilight="nautical", solver="greedy")
     return targets, plan
 
 
@@ -216,7 +222,8 @@ def test_plan_keeps_the_priority_rule(random_plan):
     start[planned] = np.rint((plan.start_mjd[planned] - plan.grid_mjd[0]) * 1440).astype(int)
     left_out = np.flatnonzero(plan.reason == sc.NO_TIME_LEFT)
     assert left_out.size > 0
-    _assert_priority_rule(start, plan.duration_steps, plan.start_ok, plan.rank, left_out)
+    assert plan.solver == "greedy"
+    _assert_priority_rule(start, plan.slot_steps, plan.start_ok, plan.rank, left_out)
 
 
 def test_plan_reasons(random_plan):
@@ -267,12 +274,12 @@ def test_night_command_end_to_end(tmp_path, small_table):
     result = CliRunner().invoke(_app(), ["night", str(path), "--site", "mauna-kea", "--date", "2027-03-15",
                                          "--priority-column", "score", "--exposure", "900", "-o", str(out)])
     assert result.exit_code == 0, result.output
-    for name in ("plan.csv", "plan.txt", "plan.png"):
+    for name in ("plan.csv", "plan.txt", "plan_log.txt", "plan.png"):
         assert (tmp_path / name).stat().st_size > 0
     written = pd.read_csv(out)
-    assert list(written.columns[:10]) == ["order", "star_id", "start_utc", "end_utc", "start_local",
-                                          "airmass_start", "airmass_end", "moon_sep_deg", "exposure_s",
-                                          "priority"]
+    assert list(written.columns[:8]) == ["night", "order", "star_id", "ra_icrs", "dec_icrs", "start_utc",
+                                         "end_utc", "start_local"]
+    assert {"airmass_start", "airmass_end", "exposure_s", "snr_expected", "priority"} <= set(written.columns)
     assert sorted(written["star_id"]) == sorted(table["star_id"])
     reasons = dict(zip(written["star_id"], written["reason"]))
     assert reasons["HD1003"] == "status_not_ok" and reasons["HD1004"] == "no_coordinates"

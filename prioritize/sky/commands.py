@@ -20,7 +20,7 @@ from .. import CAUTION
 from ..console import one_line_errors
 from ..errors import CatalogError, PrioritizeError
 
-FIGURE_ROWS = 40          # targets shown in the season heat map (the first rows of the table)
+FIGURE_ROWS = 40          # targets per page of the season heat map (pages follow until all are shown)
 TEXT_LEFT_OUT_ROWS = 30   # left-out targets listed by name in the night's text file
 
 
@@ -105,6 +105,12 @@ def _atomic_write(path: Path, write) -> None:
         raise CatalogError(f"cannot be written: {exc}", path=str(path)) from exc
 
 
+def _beside(output: Path, ending: str) -> Path:
+    """``plan.csv`` -> ``plan<ending>`` (e.g. ``plan_log.txt``), in the same folder."""
+    stem = companion_path(output, ".x")
+    return stem.with_name(stem.name[:-2] + ending)
+
+
 def _local(mjd: float, zone) -> str:
     import numpy as np
     from .offline import mjd_to_datetime
@@ -121,166 +127,320 @@ def _utc(mjd: float) -> str:
 
 # ----------------------------------------------------------------------------- night
 
+class Solver(str, Enum):
+    """Which scheduler plans the night."""
+
+    auto = "auto"
+    milp = "milp"
+    greedy = "greedy"
+
+
+def _ranked_inputs(table, priority_column, exposure_default, overhead_option, instrument_option):
+    """Per-row priority, expected detections, exposure, overhead, S/N needed, R_C and the instrument.
+
+    Expected detections when the S/N is reached: the ranked priority x the ranked time on
+    target / the ranked fraction of the S/N reached (i.e. P(engulfed) x P(detect) x the
+    cool-star factor of the ranking); without those columns, the priority itself.
+    """
+    from ..instruments import load_instrument
+
+    n = len(table)
+    priority = _numeric(table, priority_column)
+    exposure_s = _numeric(table, "exposure_s") if "exposure_s" in table.columns else np.full(n, np.nan)
+    exposure_s = np.where(np.isnan(exposure_s), exposure_default, exposure_s)
+    instrument = None
+    name = instrument_option
+    if name is None and "instrument" in table.columns:
+        names = {str(v) for v in table["instrument"].dropna() if str(v).strip()}
+        name = next(iter(names)) if len(names) == 1 else None
+    if name is not None:
+        try:
+            instrument = load_instrument(name)
+        except PrioritizeError:
+            if instrument_option is not None:
+                raise
+            instrument = None
+    columns = set(table.columns)
+    snr_needed = _numeric(table, "snr_needed") if "snr_needed" in columns else np.full(n, np.nan)
+    r_c = _numeric(table, "r_c_mag") if "r_c_mag" in columns else np.full(n, np.nan)
+    if overhead_option is not None:
+        overhead = np.full(n, float(overhead_option))
+        overhead_source = f"--overhead {overhead_option:g} s"
+    elif "overhead_s" in columns and np.isfinite(_numeric(table, "overhead_s")).any():
+        fallback = (instrument.readout_overhead_s + instrument.acquisition_overhead_s) if instrument else 300.0
+        overhead = np.where(np.isfinite(_numeric(table, "overhead_s")), _numeric(table, "overhead_s"), fallback)
+        overhead_source = "the table's overhead_s"
+    elif instrument is not None:
+        overhead = np.full(n, instrument.readout_overhead_s + instrument.acquisition_overhead_s)
+        overhead_source = f"{instrument.name} readout + acquisition"
+    else:
+        overhead = np.full(n, 300.0)
+        overhead_source = "300 s (no overhead_s column, no instrument)"
+    detections = priority.copy()
+    if priority_column == "priority" and {"time_on_target_s", "snr_at_exposure"} <= columns:
+        fraction = np.clip((_numeric(table, "snr_at_exposure") / snr_needed) ** 2, 0.0, 1.0)
+        per_visit = priority * _numeric(table, "time_on_target_s") / 3600.0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            converted = np.where(fraction > 0, per_visit / fraction, 0.0)
+        detections = np.where(np.isfinite(converted), converted, detections)
+    return dict(priority=priority, detections=detections, exposure_s=exposure_s, overhead_s=overhead,
+                overhead_source=overhead_source, snr_needed=snr_needed, r_c_mag=r_c, instrument=instrument)
+
+
 def night_command(
     ranked: Annotated[Path, typer.Argument(
-        help=f"{_TABLE_HELP} and a priority column; optional exposure_s and status.")],
+        help=f"{_TABLE_HELP} and a priority column; optional exposure_s, overhead_s, snr_needed, "
+             "r_c_mag, time_on_target_s, snr_at_exposure, instrument and status (a ranked table has them).")],
     site: SiteOption,
-    date: Annotated[str, typer.Option("--date", help="Local date of the evening, YYYY-MM-DD.")],
+    date: Annotated[str, typer.Option("--date", help="Local date of the (first) evening, YYYY-MM-DD.")],
+    nights: Annotated[int, typer.Option(
+        "--nights", min=1, max=366, help="Number of consecutive nights to plan.")] = 1,
+    end: Annotated[Optional[str], typer.Option(
+        "--end", help="Last evening (YYYY-MM-DD) of a range, instead of --nights.")] = None,
     airmass_max: Annotated[float, typer.Option(
         "--airmass-max", min=1.0, help="Air-mass limit for the whole slot (Pickering 2002).")] = 2.0,
     moon_min_sep: Annotated[float, typer.Option(
         "--moon-min-sep", min=0.0, max=180.0,
         help="Minimum Moon separation in degrees, applied while the Moon is up.")] = 30.0,
-    overhead: Annotated[float, typer.Option(
-        "--overhead", min=0.0, help="Slew, acquisition and readout per target, seconds.")] = 300.0,
+    moon_max_illum: Annotated[float, typer.Option(
+        "--moon-max-illum", min=0.0, max=1.0,
+        help="No observing while the Moon is up and more illuminated than this (1: no limit).")] = 1.0,
+    overhead: Annotated[Optional[float], typer.Option(
+        "--overhead", min=0.0, help="Slew, acquisition and readout per target, seconds "
+                                    "(default: the table's overhead_s, else the instrument's).")] = None,
     exposure: Annotated[float, typer.Option(
         "--exposure", min=1.0, help="Exposure in seconds for rows without exposure_s.")] = 600.0,
+    instrument: Annotated[Optional[str], typer.Option(
+        "--instrument", help="Instrument preset or TOML file for the exposure of each slot "
+                             "(default: the table's instrument column).")] = None,
     twilight: Annotated[Twilight, typer.Option(
         "--twilight", help="Twilight that bounds the night (nautical: Sun below -12 deg, "
                            "astronomical: -18 deg).")] = Twilight.nautical,
+    solver: Annotated[Solver, typer.Option(
+        "--solver", help="auto: exact (MILP) where the list fits, else greedy; or force one.")] = Solver.auto,
+    time_limit: Annotated[float, typer.Option(
+        "--time-limit", min=1.0, help="Seconds the exact solver may take per night.")] = 60.0,
+    include_zero_priority: Annotated[bool, typer.Option(
+        "--include-zero-priority", help="Also plan stars of priority 0 in time nothing else can use.")] = False,
     priority_column: Annotated[str, typer.Option(
         "--priority-column", help="Column holding the priority (larger first).")] = "priority",
     output: Annotated[Optional[Path], typer.Option(
-        "--output", "-o", help="Plan table (format by extension); also writes <stem>.txt and "
-                               "<stem>.png beside it.")] = None,
+        "--output", "-o", help="Plan table (format by extension: .csv, .ecsv, ...); also writes "
+                               "<stem>.txt (summary), <stem>_log.txt (telescope log list) and "
+                               "<stem>.png (figure; <stem>_<date>.png per night for several).")] = None,
 ) -> None:
-    """Plan one night: which targets to observe when, and why the others are left out.
+    """Plan one or several nights for the largest expected number of detections.
 
-    Greedy by priority: each target, highest priority first, takes the earliest
-    slot (overhead + exposure, whole minutes) in which it stays within the
-    air-mass limit and, while the Moon is up, the Moon-separation limit for the
-    whole slot; then adjacent slots are swapped where that lowers the air mass.
-    No lower-priority target takes time a higher-priority one could have used.
-    Deterministic (no randomness).
+    The plan maximises the sum over planned stars of their expected detections x
+    P(the exposure reaches its S/N in that slot).  Each slot keeps the star within
+    the air-mass limit from start to end and, while the Moon is up, the Moon limits;
+    its exposure is recomputed for the slot's air mass (the site's extinction at
+    6708 A) and sky (Moon: Krisciunas & Schaefer 1991).  The exact solver (a
+    time-slot MILP, scipy/HiGHS) runs where the list fits; greedy by priority plus
+    swaps otherwise or when it does better within the time limit.  Stars of
+    priority 0 are left out (zero_priority) unless --include-zero-priority.  Over
+    several nights a star is planned until its S/N is reached; leftovers carry over.
 
-    The table lists every input row once: planned targets first (order 1, 2, ...),
-    then the others with an empty order and their reason (status_not_ok,
-    no_coordinates, no_priority, invalid_exposure, longer_than_dark_window,
+    The table lists every input row: the planned visits (night, order 1, 2, ...),
+    then the others with their reason (status_not_ok, no_coordinates, no_priority,
+    zero_priority, invalid_exposure, longer_than_dark_window,
     never_above_airmass_limit, too_close_to_moon, no_time_left).
 
-    Example: prioritize night ranked.parquet --site mauna-kea --date 2027-03-15 -o plan.csv
+    Example: prioritize night ranked.parquet --site mauna-kea --date 2027-03-15 --nights 3 -o plan.ecsv
 
-    Times are planning estimates (about a minute); the observatory's own tools,
-    rules and safety practice prevail.
+    Times and exposures are planning estimates; the observatory's own tools, rules
+    and safety practice prevail.
     """
     import numpy as np
     from ..catalog.formats import companion_path
     with one_line_errors():
+        from .nights import night_dates, plan_nights
+        from .schedule import SCHEDULED, STATUS_NOT_OK
         from .sites import load_site
 
         the_site = load_site(site)
-        night = _parse_date(date, "--date")
-        if output is not None:
-            from ..catalog.formats import check_output_path
-            check_output_path(output, [ranked])        # a bad output fails before the plan is made
-        from .schedule import SCHEDULED, STATUS_NOT_OK, plan_night
+        first = _parse_date(date, "--date")
+        last = _parse_date(end, "--end") if end else None
+        if last is not None and last < first:
+            raise PrioritizeError(f"--end {last} is before --date {first}")
+        dates = night_dates(first, nights, last)
+        if len(dates) > 366:
+            raise PrioritizeError(f"{len(dates)} nights asked for; plan at most 366 at a time")
         table, numbers, skip = _read_targets(ranked, priority_column)
-        if "exposure_s" in table.columns:
-            exposure_s = _numeric(table, "exposure_s")
-            exposure_s = np.where(np.isnan(exposure_s), exposure, exposure_s)
-        else:
-            exposure_s = np.full(len(table), float(exposure))
+        inputs = _ranked_inputs(table, priority_column, exposure, overhead, instrument)
         keep = np.flatnonzero(skip == "")
-        plan = plan_night(the_site, night, numbers["ra_deg"][keep], numbers["dec_deg"][keep],
-                          numbers[priority_column][keep], exposure_s[keep], overhead_s=overhead,
-                          airmass_max=airmass_max, moon_min_sep_deg=moon_min_sep,
-                          twilight=twilight.value)
-        result = _night_table(table, numbers[priority_column], exposure_s, keep, plan, the_site,
-                              SCHEDULED, STATUS_NOT_OK)
-        text = _night_text(result, plan, the_site, airmass_max, moon_min_sep, overhead, SCHEDULED)
+        pick = {k: (v[keep] if isinstance(v, np.ndarray) else v) for k, v in inputs.items()}
+        result = plan_nights(the_site, dates, numbers["ra_deg"][keep], numbers["dec_deg"][keep],
+                             pick["priority"], pick["exposure_s"], detections=pick["detections"],
+                             snr_needed=pick["snr_needed"], r_c_mag=pick["r_c_mag"],
+                             instrument=pick["instrument"], overhead_s=pick["overhead_s"],
+                             airmass_max=airmass_max, moon_min_sep_deg=moon_min_sep,
+                             moon_max_illumination=moon_max_illum, twilight=twilight.value,
+                             solver=solver.value, time_limit_s=time_limit,
+                             include_zero_priority=include_zero_priority)
+        plan_table = _night_table(table, numbers, inputs, keep, result, the_site, SCHEDULED, STATUS_NOT_OK)
+        settings = dict(airmass_max=airmass_max, moon_min_sep=moon_min_sep, moon_max_illum=moon_max_illum,
+                        overhead_source=inputs["overhead_source"],
+                        instrument=inputs["instrument"].name if inputs["instrument"] else None)
+        text = _night_text(plan_table, result, the_site, settings, SCHEDULED)
         typer.echo(text)
         if output is not None:
             from ..catalog.io import provenance_metadata, write_table
 
             meta = provenance_metadata(None, command="night", input=str(ranked), site=the_site.name,
-                                       date=night.isoformat(), airmass_max=airmass_max,
-                                       moon_min_sep_deg=moon_min_sep, overhead_s=overhead,
-                                       default_exposure_s=exposure, twilight=twilight.value)
-            write_table(result, output, meta)
-            _atomic_write(companion_path(output, ".txt"),
-                          lambda p: p.write_text(text + "\n", encoding="utf-8"))
-            figure = _night_figure(plan, the_site, numbers["ra_deg"][keep], numbers["dec_deg"][keep],
-                                   airmass_max)
-            _atomic_write(companion_path(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
-            typer.echo(f"wrote {output}, {companion_path(output, '.txt').name}, "
-                       f"{companion_path(output, '.png').name}")
+                                       nights=[d.isoformat() for d in result.dates], airmass_max=airmass_max,
+                                       moon_min_sep_deg=moon_min_sep, moon_max_illumination=moon_max_illum,
+                                       overhead=inputs["overhead_source"], default_exposure_s=exposure,
+                                       twilight=twilight.value, solver=[p.solver for p in result.plans],
+                                       objective=[p.objective for p in result.plans],
+                                       extinction_6708=the_site.extinction_6708)
+            write_table(plan_table, output, meta)
+            written = [output.name]
+            _atomic_write(companion_path(output, ".txt"), lambda p: p.write_text(text + "\n", encoding="utf-8"))
+            written.append(companion_path(output, ".txt").name)
+            log_path = _beside(output, "_log.txt")
+            log = _telescope_log(plan_table, the_site, SCHEDULED)
+            _atomic_write(log_path, lambda p: p.write_text(log, encoding="utf-8"))
+            written.append(log_path.name)
+            for k, plan in enumerate(result.plans):
+                rows = keep[result.rows[k]]
+                figure = _night_figure(plan, the_site, numbers["ra_deg"][rows], numbers["dec_deg"][rows],
+                                       table["star_id"].astype(str).to_numpy()[rows],
+                                       inputs["priority"][rows], airmass_max)
+                suffix = ".png" if len(result.plans) == 1 else f"_{result.dates[k].isoformat()}.png"
+                _atomic_write(_beside(output, suffix), lambda p, f=figure: f.savefig(p, format="png", dpi=110))
+                written.append(_beside(output, suffix).name)
+            typer.echo("wrote " + ", ".join(written))
 
 
-def _night_table(table, priority, exposure_s, keep, plan, site, scheduled, status_not_ok):
-    import numpy as np
+def _sexagesimal(ra_deg, dec_deg):
+    """RA as hh:mm:ss.ss and Dec as +dd:mm:ss.s (ICRS), empty where unknown."""
+    from astropy.coordinates import Angle
+    import astropy.units as u
+
+    ra = np.asarray(ra_deg, dtype=float)
+    dec = np.asarray(dec_deg, dtype=float)
+    good = np.isfinite(ra) & np.isfinite(dec) & (ra >= 0) & (ra < 360) & (np.abs(dec) <= 90)
+    ra_text = np.full(ra.size, "", dtype=object)
+    dec_text = np.full(ra.size, "", dtype=object)
+    if good.any():
+        ra_text[good] = Angle(ra[good] * u.deg).to_string(unit=u.hourangle, sep=":", precision=2, pad=True)
+        dec_text[good] = Angle(dec[good] * u.deg).to_string(unit=u.deg, sep=":", precision=1, pad=True,
+                                                             alwayssign=True)
+    return ra_text, dec_text
+
+
+def _night_table(table, numbers, inputs, keep, result, site, scheduled, status_not_ok):
+    """One row per planned visit (night, order), then every row never planned, with its reason."""
     import pandas as pd
 
-    n = len(table)
     zone = site.zone
+    ids = table["star_id"].astype(str).to_numpy()
+    ra_text, dec_text = _sexagesimal(numbers["ra_deg"], numbers["dec_deg"])
+    visits = []
+    last_reason = np.full(len(table), status_not_ok, dtype=object)
+    for date, plan, rows in zip(result.dates, result.plans, result.rows):
+        where = keep[rows]
+        last_reason[where] = plan.reason
+        planned = np.flatnonzero(plan.order > 0)
+        planned = planned[np.argsort(plan.order[planned])]
+        for j in planned:
+            i = where[j]
+            visits.append({
+                "night": date.isoformat(), "order": int(plan.order[j]), "star_id": ids[i],
+                "ra_icrs": ra_text[i], "dec_icrs": dec_text[i],
+                "start_utc": _utc(plan.start_mjd[j]), "end_utc": _utc(plan.end_mjd[j]),
+                "start_local": _local(plan.start_mjd[j], zone),
+                "airmass_start": round(float(plan.airmass_start[j]), 3),
+                "airmass_end": round(float(plan.airmass_end[j]), 3),
+                "airmass_mid": round(float(plan.airmass_mid[j]), 3),
+                "moon_sep_deg": round(float(plan.moon_sep_deg[j]), 1),
+                "sky_mag_6708": round(float(plan.sky_mag[j]), 2),
+                "exposure_s": round(float(plan.exposure_s[j]), 1),
+                "overhead_s": float(plan.overhead_s[j]),
+                "snr_expected": round(float(plan.snr_expected[j]), 1),
+                "snr_needed": float(inputs["snr_needed"][i]),
+                "p_snr": round(float(plan.p_snr[j]), 4),
+                "expected_detections": float(plan.value[j]),
+                "priority": float(inputs["priority"][i]),
+                "solver": plan.solver, "reason": scheduled})
+    planned_ever = {v["star_id"] for v in visits}
+    others = []
+    for i in range(len(table)):
+        if ids[i] in planned_ever:
+            continue
+        others.append({"night": "", "order": None, "star_id": ids[i], "ra_icrs": ra_text[i],
+                       "dec_icrs": dec_text[i], "exposure_s": float(inputs["exposure_s"][i]),
+                       "overhead_s": float(inputs["overhead_s"][i]),
+                       "snr_needed": float(inputs["snr_needed"][i]),
+                       "priority": float(inputs["priority"][i]), "reason": last_reason[i]})
+    columns = ["night", "order", "star_id", "ra_icrs", "dec_icrs", "start_utc", "end_utc", "start_local",
+               "airmass_start", "airmass_end", "airmass_mid", "moon_sep_deg", "sky_mag_6708", "exposure_s",
+               "overhead_s", "snr_expected", "snr_needed", "p_snr", "expected_detections", "priority",
+               "solver", "reason"]
+    rest = pd.DataFrame(others, columns=columns)
+    rest = rest.sort_values("priority", ascending=False, na_position="last", kind="stable")
+    out = pd.concat([pd.DataFrame(visits, columns=columns), rest], ignore_index=True)
+    out["order"] = pd.array(out["order"], dtype="Int64")
+    for column in ("night", "star_id", "ra_icrs", "dec_icrs", "start_utc", "end_utc", "start_local",
+                   "solver", "reason"):
+        out[column] = out[column].fillna("").astype(str)
+    return out
 
-    def spread(values, fill):
-        out = np.full(n, fill, dtype=np.asarray(values).dtype)
-        out[keep] = values
-        return out
 
-    reason = np.full(n, status_not_ok, dtype=object)
-    reason[keep] = plan.reason
-    order = spread(plan.order, 0)
-    start = spread(plan.start_mjd, np.nan)
-    end = spread(plan.end_mjd, np.nan)
-    result = pd.DataFrame({
-        "order": pd.array(np.where(order > 0, order, None), dtype="Int64"),
-        "star_id": table["star_id"].astype(str).to_numpy(),
-        "start_utc": [_utc(t) for t in start],
-        "end_utc": [_utc(t) for t in end],
-        "start_local": [_local(t, zone) for t in start],
-        "airmass_start": np.round(spread(plan.airmass_start, np.nan), 3),
-        "airmass_end": np.round(spread(plan.airmass_end, np.nan), 3),
-        "moon_sep_deg": np.round(spread(plan.moon_sep_deg, np.nan), 1),
-        "exposure_s": exposure_s,
-        "priority": priority,
-        "reason": reason,
-    })
-    planned = result[reason == scheduled].sort_values("order")
-    others = result[reason != scheduled].sort_values("priority", ascending=False, na_position="last",
-                                                     kind="stable")
-    return pd.concat([planned, others], ignore_index=True)
-
-
-def _night_text(result, plan, site, airmass_max, moon_min_sep, overhead, scheduled) -> str:
-    import numpy as np
+def _night_text(plan_table, result, site, settings, scheduled) -> str:
     zone = site.zone
-    ev = plan.events
 
     def hm(mjd):
         return _local(mjd, zone)[11:16] if np.isfinite(mjd) else "--:--"
 
-    track = ev.track
-    night = (track.mjd >= ev.sunset_mjd) & (track.mjd <= ev.sunrise_mjd)
-    up = night & track.moon_up
-    illum = (f"{track.moon_illumination[up].min():.2f}-{track.moon_illumination[up].max():.2f} "
-             "illuminated while up at night" if up.any() else "below the horizon all night")
-    lines = [
-        f"Night plan for {site.name}, night of {ev.date.isoformat()} ({site.timezone}; times local "
-        "unless marked UTC)",
-        f"Sunset {hm(ev.sunset_mjd)}, {plan.twilight} twilight ends {hm(plan.window_start_mjd)}, "
-        f"begins {hm(plan.window_end_mjd)}, sunrise {hm(ev.sunrise_mjd)}",
-        f"Moon: rises {', '.join(hm(t) for t in ev.moonrise_mjd) or '-'}, sets "
-        f"{', '.join(hm(t) for t in ev.moonset_mjd) or '-'}; {illum}",
-        f"Limits: air mass <= {airmass_max:g} for the whole slot, Moon >= {moon_min_sep:g} deg while up; "
-        f"overhead {overhead:g} s per target",
-        "",
-    ]
-    planned = result[result["reason"] == scheduled]
-    window_h = (plan.window_end_mjd - plan.window_start_mjd) * 24
-    used_h = (planned["exposure_s"].sum() + overhead * len(planned)) / 3600.0
-    lines.append(f"{len(planned)} targets planned, {used_h:.2f} h of {window_h:.2f} h of dark time:")
-    lines.append(f"{'#':>3}  {'start':5}  {'UTC':8}  {'star_id':24} {'exp_s':>6}  {'airmass':>11}  "
-                 f"{'moon':>5}  {'priority':>9}")
-    for row in planned.itertuples(index=False):
-        lines.append(f"{int(row.order):>3}  {row.start_local[11:16]:5}  {row.start_utc[11:19]:8}  "
-                     f"{str(row.star_id)[:24]:24} {row.exposure_s:>6.0f}  "
-                     f"{row.airmass_start:>5.2f}-{row.airmass_end:<5.2f}  {row.moon_sep_deg:>5.0f}  "
-                     f"{row.priority:>9.3g}")
-    others = result[result["reason"] != scheduled]
+    lines = [f"Night plan for {site.name} ({site.timezone}; times local unless marked UTC), "
+             f"{len(result.plans)} night(s)",
+             f"Limits: air mass <= {settings['airmass_max']:g} from start to end of each slot, Moon >= "
+             f"{settings['moon_min_sep']:g} deg while up"
+             + (f" and no observing with the Moon up above {settings['moon_max_illum']:g} illuminated"
+                if settings["moon_max_illum"] < 1 else "")
+             + f"; overheads from {settings['overhead_source']}",
+             f"Exposures for each slot: {settings['instrument'] or 'as given (no instrument known)'}, "
+             f"extinction {site.extinction_6708:g} mag/air mass at 6708 A ({site.extinction_source}); "
+             "Moon sky from Krisciunas & Schaefer 1991"]
+    for date, plan in zip(result.dates, result.plans):
+        ev = plan.events
+        track = ev.track
+        night = (track.mjd >= ev.sunset_mjd) & (track.mjd <= ev.sunrise_mjd)
+        up = night & track.moon_up
+        illum = (f"{track.moon_illumination[up].min():.2f}-{track.moon_illumination[up].max():.2f} "
+                 "illuminated while up at night" if up.any() else "below the horizon all night")
+        lines += ["", f"== night of {date.isoformat()}",
+                  f"Sunset {hm(ev.sunset_mjd)}, {plan.twilight} twilight ends {hm(plan.window_start_mjd)}, "
+                  f"begins {hm(plan.window_end_mjd)}, sunrise {hm(ev.sunrise_mjd)}",
+                  f"Moon: rises {', '.join(hm(t) for t in ev.moonrise_mjd) or '-'}, sets "
+                  f"{', '.join(hm(t) for t in ev.moonset_mjd) or '-'}; {illum}"]
+        for run in plan.runs:
+            if run.status == "not_run":
+                lines.append(f"  {run.solver}: not run ({run.note})")
+                continue
+            gap = f", gap {run.gap:.2%}" if np.isfinite(run.gap) else ""
+            lines.append(f"  {run.solver}: {run.status}{gap}, expected detections {run.objective:.4g}, "
+                         f"{run.planned} planned, median air mass {run.median_airmass:.3f}, "
+                         f"{run.seconds:.1f} s" + (f" ({run.note})" if run.note else ""))
+        lines.append(f"  plan from: {plan.solver}")
+        rows = plan_table[(plan_table["night"] == date.isoformat()) & (plan_table["reason"] == scheduled)]
+        window_h = (plan.window_end_mjd - plan.window_start_mjd) * 24
+        used_h = np.nansum(plan.duration_s) / 3600.0
+        lines.append(f"{len(rows)} targets planned, {used_h:.2f} h of {window_h:.2f} h of dark time:")
+        lines.append(f"{'#':>3}  {'start':5}  {'UTC':8}  {'star_id':18} {'exp_s':>6} {'S/N':>5}  "
+                     f"{'airmass':>11}  {'moon':>4}  {'priority':>9}")
+        for row in rows.itertuples(index=False):
+            lines.append(f"{int(row.order):>3}  {row.start_local[11:16]:5}  {row.start_utc[11:19]:8}  "
+                         f"{str(row.star_id)[:18]:18} {row.exposure_s:>6.0f} {row.snr_expected:>5.0f}  "
+                         f"{row.airmass_start:>5.2f}-{row.airmass_end:<5.2f}  "
+                         f"{'' if not np.isfinite(row.moon_sep_deg) else f'{row.moon_sep_deg:.0f}':>4}  "
+                         f"{row.priority:>9.3g}")
+    others = plan_table[plan_table["reason"] != scheduled]
     if len(others):
         counts = others["reason"].value_counts()
-        lines += ["", f"{len(others)} left out: " + ", ".join(f"{k} {v}" for k, v in counts.items())]
+        lines += ["", f"{len(others)} never planned: " + ", ".join(f"{k} {v}" for k, v in counts.items())]
         for row in others.head(TEXT_LEFT_OUT_ROWS).itertuples(index=False):
             lines.append(f"     {str(row.star_id)[:24]:24} {row.reason}")
         if len(others) > TEXT_LEFT_OUT_ROWS:
@@ -289,52 +449,126 @@ def _night_text(result, plan, site, airmass_max, moon_min_sep, overhead, schedul
     return "\n".join(lines)
 
 
-def _night_figure(plan, site, ra_deg, dec_deg, airmass_max):
-    """Altitude against local time of the planned targets, their slots drawn thick."""
-    import numpy as np
+def _telescope_log(plan_table, site, scheduled) -> str:
+    """Plain list for the night log: one line per planned visit, UT order, J2000/ICRS coordinates."""
+    rows = plan_table[plan_table["reason"] == scheduled]
+    lines = [f"# {site.name}: planned targets (planning estimate; coordinates ICRS ~ J2000, "
+             "catalog epoch, no proper motion)",
+             f"# {'night':10} {'#':>3} {'UT start':8} {'star_id':20} {'RA':>11} {'Dec':>11} {'exp_s':>6} "
+             f"{'airmass':>7} {'S/N':>5}"]
+    for row in rows.itertuples(index=False):
+        snr = "" if not np.isfinite(row.snr_expected) else f"{row.snr_expected:.0f}"
+        lines.append(f"{row.night:12} {int(row.order):>3} {row.start_utc[11:19]:8} {str(row.star_id)[:20]:20} "
+                     f"{row.ra_icrs:>11} {row.dec_icrs:>11} {row.exposure_s:>6.0f} {row.airmass_start:>7.2f} "
+                     f"{snr:>5}")
+    return "\n".join(lines) + "\n"
+
+
+MAX_CURVES_PER_PANEL = 12   # altitude curves per panel; longer plans are split into panels by time
+
+
+def _night_figure(plan, site, ra_deg, dec_deg, star_ids, priority, airmass_max):
+    """Altitude against UT (local time on top, air mass on the right) of the planned stars.
+
+    Panels hold at most MAX_CURVES_PER_PANEL consecutive slots each; every slot is
+    drawn thick over its star's altitude curve, coloured by priority (cividis), and
+    labelled with the star's identifier where the label does not collide with another.
+    Twilight is shaded, the Moon's altitude dashed.
+    """
+    import datetime as _dt
+
     from matplotlib import colormaps
-    from matplotlib.dates import DateFormatter
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
+    from matplotlib.dates import AutoDateLocator, DateFormatter, date2num
     from matplotlib.figure import Figure
 
     from .observability import (altitude_deg, altitude_for_airmass, apparent_directions,
                                 sun_moon_track, time_grid)
     from .offline import mjd_to_datetime
 
-    zone = site.zone
     ev = plan.events
-    grid = time_grid(ev.sunset_mjd, ev.sunrise_mjd, 300.0)
+    grid = time_grid(ev.sunset_mjd - 0.01, ev.sunrise_mjd + 0.01, 300.0)
     track = sun_moon_track(site, grid)
-    times = [mjd_to_datetime(t, zone) for t in grid]
-    fig = Figure(figsize=(10, 5.5))
-    ax = fig.add_subplot()
-    ax.axvspan(mjd_to_datetime(plan.window_start_mjd, zone), mjd_to_datetime(plan.window_end_mjd, zone),
-               color="0.92", zorder=0, label=f"{plan.twilight} night")
-    ax.axhline(float(altitude_for_airmass(airmass_max)), color="0.4", ls=":",
-               label=f"air mass {airmass_max:g}")
-    ax.plot(times, track.moon_altitude_deg, color="goldenrod", ls="--", label="Moon")
+    utc = _dt.timezone.utc
+    x = date2num([mjd_to_datetime(t, utc) for t in grid])
     planned = np.flatnonzero(plan.order > 0)
     planned = planned[np.argsort(plan.order[planned])]
-    directions = apparent_directions(ra_deg[planned], dec_deg[planned], 0.5 * (grid[0] + grid[-1]))
-    altitudes = altitude_deg(directions, track.zenith)
-    colours = colormaps["viridis"]
-    for row, i in enumerate(planned):
-        colour = colours(row / max(1, planned.size - 1))
-        ax.plot(times, altitudes[row], color=colour, lw=0.7, alpha=0.5)
-        inside = (grid >= plan.start_mjd[i]) & (grid <= plan.end_mjd[i])
-        slot_times = [plan.start_mjd[i], *grid[inside], plan.end_mjd[i]]
-        slot_alt = np.interp(slot_times, grid, altitudes[row])
-        ax.plot([mjd_to_datetime(t, zone) for t in slot_times], slot_alt, color=colour, lw=3)
-        ax.annotate(str(plan.order[i]), (mjd_to_datetime(plan.start_mjd[i], zone), slot_alt[0]),
-                    fontsize=7, xytext=(0, 4), textcoords="offset points")
-    ax.set_ylim(0, 90)
-    ax.set_xlim(times[0], times[-1])
-    ax.set_ylabel("altitude (deg)")
-    ax.set_xlabel(f"local time ({site.timezone})")
-    ax.xaxis.set_major_formatter(DateFormatter("%H:%M", tz=zone))
-    ax.set_title(f"{site.name}, night of {ev.date.isoformat()}: {planned.size} targets planned "
-                 "(thick: observing slot; planning estimate)", fontsize=10)
-    ax.legend(loc="upper right", fontsize=8)
-    fig.tight_layout()
+    chunks = [planned[k:k + MAX_CURVES_PER_PANEL] for k in range(0, planned.size, MAX_CURVES_PER_PANEL)] or [planned]
+    fig = Figure(figsize=(11, 3.4 * len(chunks) + 1.2), layout="constrained")
+    FigureCanvasAgg(fig)
+    prio = priority[planned] if planned.size else np.array([0.0, 1.0])
+    finite = prio[np.isfinite(prio)]
+    norm = Normalize(vmin=float(finite.min()) if finite.size else 0.0,
+                     vmax=float(finite.max()) if finite.size and finite.max() > finite.min() else
+                     (float(finite.min()) + 1e-9 if finite.size else 1.0))
+    cmap = colormaps["cividis"]
+    altitudes = (altitude_deg(apparent_directions(ra_deg[planned], dec_deg[planned], 0.5 * (grid[0] + grid[-1])),
+                              track.zenith) if planned.size else np.zeros((0, grid.size)))
+    row_of = {i: r for r, i in enumerate(planned)}
+    offset_days = mjd_to_datetime(0.5 * (grid[0] + grid[-1]), site.zone).utcoffset().total_seconds() / 86400.0
+    limit_alt = float(altitude_for_airmass(airmass_max))
+    axes = fig.subplots(len(chunks), 1, squeeze=False)[:, 0]
+    renderer = fig.canvas.get_renderer()
+
+    def to_x(mjd):
+        return date2num(mjd_to_datetime(mjd, utc))
+
+    for ax, chunk in zip(axes, chunks):
+        ax.axvspan(to_x(ev.sunset_mjd), to_x(plan.window_start_mjd), color="0.85", zorder=0)
+        ax.axvspan(to_x(plan.window_end_mjd), to_x(ev.sunrise_mjd), color="0.85", zorder=0,
+                   label=f"twilight (to {plan.twilight})")
+        ax.axhline(limit_alt, color="0.35", ls=":", lw=1, label=f"air mass {airmass_max:g}")
+        up = track.moon_altitude_deg > 0
+        if up.any():
+            ax.plot(x, np.where(up, track.moon_altitude_deg, np.nan), color="0.3", ls="--", lw=1,
+                    label=f"Moon ({np.nanmean(track.moon_illumination[up]):.0%} lit)")
+        if chunk.size:
+            lo = max(plan.start_mjd[chunk].min() - 0.5 / 24, grid[0])
+            hi = min(plan.end_mjd[chunk].max() + 0.5 / 24, grid[-1])
+            ax.set_xlim(to_x(lo), to_x(hi))
+        else:
+            ax.set_xlim(x[0], x[-1])
+        ax.set_ylim(10, 90)
+        ax.set_autoscale_on(False)
+        placed = []
+        for i in chunk:
+            r = row_of[i]
+            colour = cmap(norm(priority[i])) if np.isfinite(priority[i]) else "0.5"
+            ax.plot(x, altitudes[r], color=colour, lw=0.8, alpha=0.6)
+            inside = (grid >= plan.start_mjd[i]) & (grid <= plan.end_mjd[i])
+            slot_t = np.array([plan.start_mjd[i], *grid[inside], plan.end_mjd[i]])
+            slot_alt = np.interp(slot_t, grid, altitudes[r])
+            ax.plot([to_x(t) for t in slot_t], slot_alt, color=colour, lw=3.5, solid_capstyle="butt")
+            middle = 0.5 * (plan.start_mjd[i] + plan.end_mjd[i])
+            label = ax.annotate(str(star_ids[i]), (to_x(middle), float(np.interp(middle, grid, altitudes[r]))),
+                                xytext=(0, 5), textcoords="offset points", ha="center", fontsize=7)
+            box = label.get_window_extent(renderer)
+            if any(box.overlaps(other) for other in placed):
+                label.remove()
+            else:
+                placed.append(box)
+        ax.set_ylabel("altitude (deg)")
+        ax.xaxis.set_major_locator(AutoDateLocator(tz=utc, minticks=4, maxticks=9))
+        ax.xaxis.set_major_formatter(DateFormatter("%H:%M", tz=utc))
+        ax.set_xlabel("UT", fontsize=8)
+        top = ax.secondary_xaxis("top", functions=(lambda v: v + offset_days, lambda v: v - offset_days))
+        top.xaxis.set_major_locator(AutoDateLocator(tz=utc, minticks=4, maxticks=9))
+        top.xaxis.set_major_formatter(DateFormatter("%H:%M", tz=utc))
+        top.set_xlabel(f"local time ({site.timezone})", fontsize=8)
+        right = ax.twinx()
+        right.set_ylim(ax.get_ylim())
+        ticks = [1.0, 1.2, 1.5, 2.0, 3.0]
+        right.set_yticks([float(altitude_for_airmass(t)) for t in ticks], [f"{t:g}" for t in ticks])
+        right.set_ylabel("air mass")
+        if ax is axes[0]:
+            ax.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    mappable = fig.colorbar(ScalarMappable(norm, cmap), ax=list(axes), location="bottom",
+                            fraction=0.03 if len(chunks) > 1 else 0.06, aspect=50)
+    mappable.set_label("priority (expected detections per hour)")
+    fig.suptitle(f"{site.name}, night of {ev.date.isoformat()}: {planned.size} planned ({plan.solver}; "
+                 "thick: slot; planning estimate)", fontsize=10)
     return fig
 
 
@@ -363,6 +597,9 @@ def season_command(
         "--priority-column", help="Column holding the priority, if any (orders the figure).")] = "priority",
     step_minutes: Annotated[float, typer.Option(
         "--step-minutes", min=1.0, max=60.0, help="Sampling step through each night.")] = 10.0,
+    figure_rows: Annotated[int, typer.Option(
+        "--figure-rows", min=0, help="Targets per heat-map page (0: all on one page); pages "
+                                     "<stem>.png, <stem>_2.png, ... until every target is shown.")] = FIGURE_ROWS,
     output: Annotated[Optional[Path], typer.Option(
         "--output", "-o", help="Season table (format by extension); also writes a heat map "
                                "<stem>.png beside it.")] = None,
@@ -373,8 +610,10 @@ def season_command(
     illuminated fraction at most --moon-ok-illum).  A target counts the time its
     air mass is at most --airmass-max, sampled every --step-minutes through every
     night; nights belong to the month of their evening.  Columns: star_id,
-    <YYYY-MM>_hours for each month, total_hours, reason (ok, status_not_ok or
-    no_coordinates; skipped rows have empty hours).
+    priority (when the table has one), <YYYY-MM>_hours for each month, total_hours,
+    reason (ok, status_not_ok or no_coordinates; skipped rows have empty hours).
+    Rows are ordered by priority (highest first), then the rest in input order; the
+    heat map shows every computed target in that order, --figure-rows per page.
 
     Example: prioritize season ranked.parquet --site paranal --semester 2027A -o season.csv
 
@@ -413,10 +652,16 @@ def season_command(
         reason = np.where(skip == "", OK, skip).astype(object)
         reason[keep[~np.isfinite(season.hours).all(axis=1)]] = "no_coordinates"
         result = pd.DataFrame({"star_id": table["star_id"].astype(str).to_numpy()})
+        has_priority = priority_column in table.columns
+        if has_priority:
+            result["priority"] = _numeric(table, priority_column)
         for j, month in enumerate(season.months):
             result[f"{month}_hours"] = np.round(hours[:, j], 2)
         result["total_hours"] = np.round(np.where(np.isfinite(hours).all(axis=1), hours.sum(axis=1), np.nan), 2)
         result["reason"] = reason
+        if has_priority:
+            result = result.sort_values("priority", ascending=False, na_position="last", kind="stable",
+                                        ignore_index=True)
         typer.echo(f"Season table for {the_site.name}, nights {first} to {last}, air mass <= {airmass_max:g}")
         typer.echo("dark hours per month: " + ", ".join(
             f"{m} {h:.1f} h" for m, h in zip(season.months, season.dark_hours)))
@@ -432,37 +677,42 @@ def season_command(
                                        dark_hours={m: float(h) for m, h in zip(season.months,
                                                                                season.dark_hours)})
             write_table(result, output, meta)
-            priority = _numeric(table, priority_column) if priority_column in table.columns else None
-            figure = _season_figure(result, season, the_site, first, last, airmass_max, priority)
-            _atomic_write(companion_path(output, ".png"), lambda p: figure.savefig(p, format="png", dpi=110))
-            typer.echo(f"wrote {output}, {companion_path(output, '.png').name}")
+            computed = result[result["reason"] == OK]
+            size = figure_rows if figure_rows > 0 else max(len(computed), 1)
+            pages = [computed.iloc[k:k + size] for k in range(0, max(len(computed), 1), size)]
+            written = []
+            for number, page in enumerate(pages, start=1):
+                figure = _season_figure(page, season, the_site, first, last, airmass_max, has_priority,
+                                        number, len(pages))
+                path = companion_path(output, ".png") if number == 1 else _beside(output, f"_{number}.png")
+                _atomic_write(path, lambda p, f=figure: f.savefig(p, format="png", dpi=110))
+                written.append(path.name)
+            typer.echo(f"wrote {output}, {', '.join(written)}")
 
 
-def _season_figure(result, season, site, first, last, airmass_max, priority):
-    import numpy as np
-    from ..catalog.status import OK
+def _season_figure(shown, season, site, first, last, airmass_max, has_priority, page, pages):
+    """Heat map of one page of targets (rows in priority order), with the dark hours on top."""
     from matplotlib.figure import Figure
 
-    computed = result[result["reason"] == OK]
-    if priority is not None:
-        order = np.argsort(-np.nan_to_num(priority[computed.index], nan=-np.inf), kind="stable")
-        computed = computed.iloc[order]
-    shown = computed.head(FIGURE_ROWS)
     columns = [f"{m}_hours" for m in season.months]
     values = np.vstack([season.dark_hours[None, :], shown[columns].to_numpy(dtype=float)]) \
         if len(shown) else season.dark_hours[None, :]
-    labels = ["dark time"] + [str(s)[:20] for s in shown["star_id"]]
-    fig = Figure(figsize=(1.6 + 0.9 * len(columns), 1.6 + 0.25 * len(labels)))
+    if has_priority:
+        labels = ["dark time"] + [f"{str(s)[:18]}  {p:.3g}" if np.isfinite(p) else f"{str(s)[:18]}  -"
+                                  for s, p in zip(shown["star_id"], shown["priority"])]
+    else:
+        labels = ["dark time"] + [str(s)[:20] for s in shown["star_id"]]
+    fig = Figure(figsize=(2.4 + 0.9 * len(columns), 1.6 + 0.22 * len(labels)), layout="constrained")
     ax = fig.add_subplot()
     image = ax.imshow(values, aspect="auto", cmap="magma", vmin=0)
     for (r, c), v in np.ndenumerate(values):
         ax.text(c, r, f"{v:.0f}", ha="center", va="center", fontsize=6,
                 color="white" if v < 0.6 * np.nanmax(values) else "black")
     ax.set_xticks(range(len(season.months)), season.months, fontsize=8)
-    ax.set_yticks(range(len(labels)), labels, fontsize=7)
+    ax.set_yticks(range(len(labels)), labels, fontsize=7, family="monospace")
     ax.axhline(0.5, color="white", lw=2)
     fig.colorbar(image, ax=ax, label="hours")
+    order = "by priority (shown beside each name)" if has_priority else "in table order"
     ax.set_title(f"{site.name} {first} to {last}: dark hours at air mass <= {airmass_max:g}\n"
-                 f"(first {len(shown)} targets; planning estimate)", fontsize=9)
-    fig.tight_layout()
+                 f"targets {order}; page {page} of {pages}; planning estimate", fontsize=9)
     return fig

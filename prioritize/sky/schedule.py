@@ -39,11 +39,14 @@ All times are planning estimates; the observatory's own tools and rules prevail.
 from __future__ import annotations
 
 import datetime as dt
+import time
 from dataclasses import dataclass
 
 import numpy as np
 
 from ..errors import PrioritizeError
+from .milp import solve_slot_milp
+from .moonlight import phase_angle_from_illumination, sky_mag_6708
 from .observability import (
     MOON_HORIZON_ALTITUDE_DEG,
     NightEvents,
@@ -57,6 +60,7 @@ from .observability import (
     time_grid,
 )
 from .sites import Site
+from .slots import at_fractional_step, slot_exposures
 
 SCHEDULED = "scheduled"
 NO_COORDINATES = "no_coordinates"
@@ -66,7 +70,12 @@ LONGER_THAN_WINDOW = "longer_than_dark_window"
 NEVER_ABOVE_AIRMASS_LIMIT = "never_above_airmass_limit"
 TOO_CLOSE_TO_MOON = "too_close_to_moon"
 NO_TIME_LEFT = "no_time_left"
+ZERO_PRIORITY = "zero_priority"
 STATUS_NOT_OK = "status_not_ok"
+SOLVERS = ("auto", "milp", "greedy")
+MAX_AUTO_STRIDE = 10      # the MILP runs by itself only while its starts are at most 10 steps apart
+TIE_BONUS = 1e-3          # ties broken towards low air mass: at most 0.1% of the objective
+ZERO_BONUS = 1e-6         # a zero-priority target (when allowed) is worth 1e-6 of the smallest value
 
 _TARGET_CHUNK = 2048      # targets per block when building the (targets x steps) matrices
 
@@ -86,7 +95,8 @@ def feasible_starts(ok, duration_steps) -> np.ndarray:
     ok : array_like of bool
         Shape ``(n, m)``: target i is within its limits at grid time k.
     duration_steps : array_like of int
-        Slot length of each target in steps, ``(n,)``, at least 1.
+        Slot length in steps, at least 1: one per target ``(n,)``, or one per target and
+        start ``(n, m)`` when the exposure depends on the slot.
 
     Returns
     -------
@@ -95,7 +105,7 @@ def feasible_starts(ok, duration_steps) -> np.ndarray:
     """
     ok = np.asarray(ok, dtype=bool)
     n, m = ok.shape
-    d = np.asarray(duration_steps, dtype=np.int64).reshape(n, 1)
+    d = _per_start(duration_steps, n, m)
     bad_before = np.zeros((n, m + 1), dtype=np.int32)
     np.cumsum(~ok, axis=1, out=bad_before[:, 1:])
     start = np.arange(m)[None, :]
@@ -103,6 +113,12 @@ def feasible_starts(ok, duration_steps) -> np.ndarray:
     inside = end <= m
     bad = np.take_along_axis(bad_before, np.minimum(end, m), axis=1) - bad_before[:, :m]
     return inside & (bad == 0)
+
+
+def _per_start(duration_steps, n: int, m: int) -> np.ndarray:
+    """Slot lengths as an ``(n, m)`` integer array (a per-target ``(n,)`` array is repeated)."""
+    d = np.asarray(duration_steps, dtype=np.int64)
+    return np.broadcast_to(d.reshape(n, 1) if d.ndim == 1 else d, (n, m))
 
 
 def greedy_schedule(start_ok, duration_steps, priority) -> np.ndarray:
@@ -113,7 +129,7 @@ def greedy_schedule(start_ok, duration_steps, priority) -> np.ndarray:
     start_ok : array_like of bool
         ``(n, m)`` from :func:`feasible_starts`.
     duration_steps : array_like of int
-        ``(n,)`` slot lengths in steps.
+        ``(n,)`` or ``(n, m)`` slot lengths in steps (:func:`feasible_starts`).
     priority : array_like of float
         ``(n,)``, larger first; NaN targets are never placed.  Ties keep input order.
 
@@ -124,21 +140,22 @@ def greedy_schedule(start_ok, duration_steps, priority) -> np.ndarray:
     """
     start_ok = np.asarray(start_ok, dtype=bool)
     n, m = start_ok.shape
-    d = np.asarray(duration_steps, dtype=np.int64)
+    d = _per_start(duration_steps, n, m)
     priority = np.asarray(priority, dtype=float)
     start = np.full(n, -1, dtype=np.int64)
     busy = np.zeros(max(m - 1, 0), dtype=bool)              # step k: interval [t_k, t_k+1)
     busy_before = np.zeros(m, dtype=np.int64)
+    steps = np.arange(m)
     rank = greedy_rank(priority)
     candidates = np.flatnonzero(start_ok.any(axis=1) & np.isfinite(priority))
     for i in candidates[np.argsort(rank[candidates])]:
-        s = np.arange(m - d[i])
-        free = busy_before[s + d[i]] == busy_before[s]
-        hits = np.flatnonzero(start_ok[i, : m - d[i]] & free)
+        end = np.minimum(steps + d[i], m - 1)
+        free = busy_before[end] == busy_before
+        hits = np.flatnonzero(start_ok[i] & free)
         if hits.size:
             k = hits[0]
             start[i] = k
-            busy[k:k + d[i]] = True
+            busy[k:k + d[i, k]] = True
             busy_before[1:] = np.cumsum(busy)
     return start
 
@@ -151,23 +168,25 @@ def greedy_rank(priority) -> np.ndarray:
     return rank
 
 
-def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocked_ranks) -> np.ndarray:
+def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocked_ranks,
+                     value=None) -> np.ndarray:
     """Swap adjacent slots while that lowers the summed mean air mass.
 
     Two slots that touch (the first ends where the second starts) exchange their
     targets, the second target moving to the first start, when both stay feasible,
-    the sum of the two targets' mean air masses over their slots falls by more than
-    1e-9, and no target left out for lack of time ranks between the two (so the
-    time held by the targets ranked above any left-out target does not change:
-    the greedy guarantee survives).  Occupied time and the set of targets are
-    unchanged.
+    the pair still ends by the end of the second slot, the sum of the two targets'
+    mean air masses over their slots falls by more than 1e-9, the summed ``value``
+    does not fall, and no target left out for lack of time ranks between the two (so
+    the time held by the targets ranked above any left-out target does not grow: the
+    greedy guarantee survives).  The set of targets is unchanged; with per-target
+    durations the occupied time is unchanged too.
 
     Parameters
     ----------
     start_step : array_like of int
         ``(n,)`` start steps, -1 for targets left out.
     duration_steps : array_like of int
-        ``(n,)``.
+        ``(n,)`` or ``(n, m)`` (:func:`feasible_starts`).
     start_ok : array_like of bool
         ``(n, m)`` feasibility of each start (:func:`feasible_starts`).
     airmass : array_like of float
@@ -177,6 +196,9 @@ def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocke
         ``(n,)`` greedy order of the targets (:func:`greedy_rank`).
     blocked_ranks : array_like of int
         Greedy ranks of the targets left out for lack of time.
+    value : array_like of float, optional
+        ``(n, m)`` what each target yields when its slot starts at each step; a swap
+        never lowers the summed value.  None: every start yields the same.
 
     Returns
     -------
@@ -184,8 +206,10 @@ def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocke
         The improved start steps.
     """
     start = np.array(start_step, dtype=np.int64)
-    d = np.asarray(duration_steps, dtype=np.int64)
     start_ok = np.asarray(start_ok, dtype=bool)
+    n, m = start_ok.shape
+    d = _per_start(duration_steps, n, m)
+    worth = np.zeros((n, m)) if value is None else np.nan_to_num(np.asarray(value, dtype=float))
     rank = np.asarray(rank, dtype=np.int64)
     blocked = np.sort(np.asarray(blocked_ranks, dtype=np.int64))
     x = np.where(np.isfinite(airmass), airmass, 1e6)
@@ -193,7 +217,7 @@ def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocke
     np.cumsum(x, axis=1, out=cum[:, 1:])
 
     def cost(i: int, s: int) -> float:
-        return (cum[i, s + d[i] + 1] - cum[i, s]) / (d[i] + 1)
+        return (cum[i, s + d[i, s] + 1] - cum[i, s]) / (d[i, s] + 1)
 
     def separated_by_blocked(a: int, b: int) -> bool:
         lo, hi = sorted((rank[a], rank[b]))
@@ -205,10 +229,14 @@ def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocke
         seq = planned[np.argsort(start[planned])]
         for a, b in zip(seq[:-1], seq[1:]):
             s = start[a]
-            if start[b] != s + d[a] or separated_by_blocked(a, b):
+            if start[b] != s + d[a, s] or separated_by_blocked(a, b):
                 continue
-            new_a = s + d[b]
-            if not (start_ok[b, s] and start_ok[a, new_a]):
+            new_a = s + d[b, s]
+            if new_a >= m or not (start_ok[b, s] and start_ok[a, new_a]):
+                continue
+            if new_a + d[a, new_a] > start[b] + d[b, start[b]]:
+                continue
+            if worth[b, s] + worth[a, new_a] < worth[a, s] + worth[b, start[b]] - 1e-12:
                 continue
             if cost(b, s) + cost(a, new_a) < cost(a, s) + cost(b, start[b]) - 1e-9:
                 start[b], start[a] = s, new_a
@@ -222,6 +250,41 @@ def improve_by_swaps(start_step, duration_steps, start_ok, airmass, rank, blocke
 # ---------------------------------------------------------------------------
 # the whole night
 # ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class SolverRun:
+    """What one solver reached on a night.
+
+    Attributes
+    ----------
+    solver : str
+        ``"milp"`` or ``"greedy"``.
+    status : str
+        ``"optimal"``, ``"time_limit"``, ``"no_solution"``, ``"heuristic"`` (greedy) or
+        ``"not_run"`` (with the reason in ``note``).
+    objective : float
+        Expected detections of the plan (sum over planned targets of value x P).
+    gap : float
+        Relative optimality gap (MILP only; NaN otherwise).
+    planned : int
+        Number of targets planned.
+    median_airmass : float
+        Median air mass at mid-exposure of the planned slots.
+    seconds : float
+        Wall time.
+    note : str
+        Size of the programme, or why it did not run.
+    """
+
+    solver: str
+    status: str
+    objective: float
+    gap: float
+    planned: int
+    median_airmass: float
+    seconds: float
+    note: str = ""
+
 
 @dataclass(frozen=True)
 class NightPlan:
@@ -238,23 +301,41 @@ class NightPlan:
     grid_mjd : numpy.ndarray
         The time grid (UTC MJD).
     duration_s : numpy.ndarray
-        Slot length actually reserved (whole steps).
+        Slot length reserved for each planned target (whole steps; NaN when left out).
     start_mjd, end_mjd : numpy.ndarray
         Slot start (overhead begins) and end of the exposure; NaN when left out.
     order : numpy.ndarray of int
         1, 2, ... in time order; 0 when left out.
-    airmass_start, airmass_end : numpy.ndarray
-        Air mass at the slot's start and at the end of the exposure.
+    airmass_start, airmass_end, airmass_mid : numpy.ndarray
+        Air mass at the slot's start, at the end and at the middle of the exposure.
     moon_sep_deg : numpy.ndarray
         Smallest Moon separation during the slot (degrees).
+    exposure_s : numpy.ndarray
+        Exposure of the planned slot (recomputed for the slot when the S/N is known).
+    snr_expected : numpy.ndarray
+        S/N per pixel at 6708 A the slot reaches (NaN when not computed).
+    p_snr : numpy.ndarray
+        P(the slot reaches its S/N), min(1, (S/N / S/N needed)^2).
+    value : numpy.ndarray
+        Expected detections of the planned slot (detections x P).
+    sky_mag : numpy.ndarray
+        Sky brightness near 6708 A at mid-exposure (mag arcsec^-2).
+    overhead_s : numpy.ndarray
+        Overhead placed before each exposure.
     reason : numpy.ndarray of str
         ``"scheduled"`` or why the target is left out.
-    duration_steps : numpy.ndarray of int
-        Slot length in grid steps.
+    slot_steps : numpy.ndarray of int
+        ``(n, m)`` slot length in grid steps for each possible start.
     start_ok : numpy.ndarray of bool
         ``(n, m)``: slot starts within all limits for the whole slot.
     rank : numpy.ndarray of int
         Greedy order (0 first) among the targets that had a feasible slot.
+    solver : str
+        The solver whose plan this is.
+    runs : tuple of SolverRun
+        Every solver tried, with objective and (MILP) gap.
+    objective : float
+        Expected detections of the plan.
     """
 
     events: NightEvents
@@ -268,28 +349,58 @@ class NightPlan:
     order: np.ndarray
     airmass_start: np.ndarray
     airmass_end: np.ndarray
+    airmass_mid: np.ndarray
     moon_sep_deg: np.ndarray
+    exposure_s: np.ndarray
+    snr_expected: np.ndarray
+    p_snr: np.ndarray
+    value: np.ndarray
+    sky_mag: np.ndarray
+    overhead_s: np.ndarray
     reason: np.ndarray
-    duration_steps: np.ndarray
+    slot_steps: np.ndarray
     start_ok: np.ndarray
     rank: np.ndarray
+    solver: str
+    runs: tuple
+    objective: float
 
 
-def _check_limits(airmass_max, moon_min_sep_deg, overhead_s, step_s):
+def _check_limits(airmass_max, moon_min_sep_deg, overhead_s, step_s, moon_max_illumination, solver):
     if not np.isfinite(airmass_max) or airmass_max < 1.0:
         raise PrioritizeError(f"airmass limit must be >= 1, got {airmass_max!r}")
     if not np.isfinite(moon_min_sep_deg) or not 0.0 <= moon_min_sep_deg <= 180.0:
         raise PrioritizeError(f"Moon separation limit must be 0-180 degrees, got {moon_min_sep_deg!r}")
-    if not np.isfinite(overhead_s) or overhead_s < 0.0:
+    overhead = np.asarray(overhead_s, dtype=float)
+    if overhead.size and (not np.all(np.isfinite(overhead)) or np.any(overhead < 0.0)):
         raise PrioritizeError(f"overhead must be >= 0 seconds, got {overhead_s!r}")
     if not np.isfinite(step_s) or not 1.0 <= step_s <= 3600.0:
         raise PrioritizeError(f"time step must be 1-3600 seconds, got {step_s!r}")
+    if not np.isfinite(moon_max_illumination) or not 0.0 <= moon_max_illumination <= 1.0:
+        raise PrioritizeError(f"Moon illumination limit must be 0-1, got {moon_max_illumination!r}")
+    if solver not in SOLVERS:
+        raise PrioritizeError(f"solver must be one of {', '.join(SOLVERS)}, got {solver!r}")
+
+
+def _median_airmass(airmass_mid, start, rows=None) -> float:
+    planned = np.flatnonzero(start >= 0)
+    if planned.size == 0:
+        return float("nan")
+    return float(np.median(airmass_mid[planned, start[planned]]))
+
+
+def _objective(value, start) -> float:
+    planned = np.flatnonzero(start >= 0)
+    return float(value[planned, start[planned]].sum())
 
 
 def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s, *,
-               overhead_s: float = 300.0, airmass_max: float = 2.0, moon_min_sep_deg: float = 30.0,
-               twilight: str = "nautical", step_s: float = 60.0) -> NightPlan:
-    """Plan one night: greedy by priority, then adjacent swaps (module docstring).
+               overhead_s=300.0, airmass_max: float = 2.0, moon_min_sep_deg: float = 30.0,
+               moon_max_illumination: float = 1.0, twilight: str = "nautical", step_s: float = 60.0,
+               detections=None, instrument=None, snr_needed=None, r_c_mag=None,
+               include_zero_priority: bool = False, solver: str = "auto", time_limit_s: float = 60.0,
+               milp_max_variables: int = 20_000, milp_stride: int | None = None) -> NightPlan:
+    """Plan one night (module docstring): the exact solver where it fits, the greedy otherwise.
 
     Parameters
     ----------
@@ -299,19 +410,41 @@ def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s,
     ra_deg, dec_deg : array_like
         ICRS coordinates (degrees), ``(n,)``; NaN or out of range → ``no_coordinates``.
     priority : array_like
-        Larger is observed first; NaN → ``no_priority``.
+        The ranked priority (larger first): orders the greedy; NaN → ``no_priority``;
+        ≤ 0 → ``zero_priority`` unless ``include_zero_priority``.
     exposure_s : array_like
-        Exposure time per target (seconds); NaN or ≤ 0 → ``invalid_exposure``.
-    overhead_s : float
+        Exposure per target (seconds), used where the S/N needed or the magnitude is
+        unknown; NaN or ≤ 0 there → ``invalid_exposure``.
+    overhead_s : float or array_like
         Slew, acquisition and readout per target (seconds), placed before the exposure.
     airmass_max : float
-        Air-mass limit (Pickering 2002), ≥ 1.
+        Air-mass limit (Pickering 2002), ≥ 1, at every grid time of the slot.
     moon_min_sep_deg : float
         Minimum Moon separation while the Moon is up (degrees).
+    moon_max_illumination : float
+        No slot while the Moon is up with a larger illuminated fraction (1: no limit).
     twilight : {"nautical", "astronomical", "civil"}
         Which twilight bounds the dark window.
     step_s : float
         Grid step (seconds); slots are whole steps.
+    detections : array_like, optional
+        Expected detections of each target when its S/N is reached (the value the
+        plan maximises, times P(S/N)); default: the priority.
+    instrument : Instrument, optional
+        Spectrograph for the exposure of each slot (:mod:`prioritize.sky.slots`).
+    snr_needed, r_c_mag : array_like, optional
+        S/N per pixel to reach and Cousins R of each target.
+    include_zero_priority : bool
+        Plan targets of priority 0 in time nobody else can use.
+    solver : {"auto", "milp", "greedy"}
+        ``auto``: the MILP when the programme has at most ``milp_max_variables``
+        variables at a start stride of at most :data:`MAX_AUTO_STRIDE` steps, else the greedy.
+    time_limit_s : float
+        Wall-time limit of the MILP.
+    milp_max_variables : int
+        Size above which the start stride of the MILP grows.
+    milp_stride : int, optional
+        Force the MILP's start stride (steps).
 
     Returns
     -------
@@ -328,12 +461,18 @@ def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s,
     Planning estimates: times are good to about a minute (the grid step);
     weather, telescope limits and the observatory's rules are not modelled.
     """
-    _check_limits(airmass_max, moon_min_sep_deg, overhead_s, step_s)
+    _check_limits(airmass_max, moon_min_sep_deg, overhead_s, step_s, moon_max_illumination, solver)
     ra = np.asarray(ra_deg, dtype=float)
     dec = np.asarray(dec_deg, dtype=float)
+    n = ra.size
     prio = np.asarray(priority, dtype=float)
     exposure = np.asarray(exposure_s, dtype=float)
-    n = ra.size
+    overhead = np.broadcast_to(np.asarray(overhead_s, dtype=float), (n,)).astype(float)
+    worth = prio.copy() if detections is None else np.asarray(detections, dtype=float)
+    need = np.full(n, np.nan) if snr_needed is None else np.asarray(snr_needed, dtype=float)
+    r_c = np.full(n, np.nan) if r_c_mag is None else np.asarray(r_c_mag, dtype=float)
+    computed_exposure = (instrument is not None) & np.isfinite(need) & (need > 0) & np.isfinite(r_c)
+
     events = night_events(site, date)
     window_start, window_end = events.dark_window(twilight)
     first_step = np.ceil(window_start * 86400.0 / step_s - 1e-6) * step_s / 86400.0  # on whole steps
@@ -341,71 +480,141 @@ def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s,
     m = grid.size
     track = sun_moon_track(site, grid)
     moon_up = track.moon_altitude_deg > MOON_HORIZON_ALTITUDE_DEG
+    moon_allows = ~moon_up | (track.moon_illumination <= moon_max_illumination)
     min_altitude = float(altitude_for_airmass(airmass_max))
+    phase = phase_angle_from_illumination(track.moon_illumination)
 
     reason = np.full(n, NO_TIME_LEFT, dtype=object)
     has_coords = np.isfinite(ra) & np.isfinite(dec) & (ra >= 0) & (ra < 360) & (np.abs(dec) <= 90)
-    valid_exposure = np.isfinite(exposure) & (exposure > 0)
-    duration = np.where(valid_exposure, np.ceil((np.where(valid_exposure, exposure, 0) + overhead_s)
-                                                / step_s - 1e-9), 1).astype(np.int64)
-    duration = np.maximum(duration, 1)
-    reason[duration > m - 1] = LONGER_THAN_WINDOW
+    valid_exposure = computed_exposure | (np.isfinite(exposure) & (exposure > 0))
     reason[~valid_exposure] = INVALID_EXPOSURE
-    reason[~np.isfinite(prio)] = NO_PRIORITY
+    if not include_zero_priority:
+        reason[np.isfinite(prio) & (prio <= 0)] = ZERO_PRIORITY
+    reason[~np.isfinite(prio) | ~np.isfinite(worth)] = NO_PRIORITY
     reason[~has_coords] = NO_COORDINATES
     candidates = np.flatnonzero(reason == NO_TIME_LEFT)
+    fixed = np.where(np.isfinite(exposure) & (exposure > 0), exposure, 1.0)
 
     directions = np.zeros((n, 3))
     directions[has_coords] = apparent_directions(ra[has_coords], dec[has_coords], 0.5 * (grid[0] + grid[-1]))
-    start_ok = np.zeros((n, m), dtype=bool)
+    shape = (n, m)
+    start_ok = np.zeros(shape, dtype=bool)
+    steps_of = np.ones(shape, dtype=np.int32)
+    airmass = np.full(shape, np.inf, dtype=np.float32)
+    slot_exposure = np.full(shape, np.nan, dtype=np.float32)
+    slot_snr = np.full(shape, np.nan, dtype=np.float32)
+    slot_fraction = np.zeros(shape, dtype=np.float32)
+    slot_airmass = np.full(shape, np.inf, dtype=np.float32)
+    slot_sky = np.full(shape, np.nan, dtype=np.float32)
     for block in np.array_split(candidates, max(1, int(np.ceil(candidates.size / _TARGET_CHUNK)))):
         if block.size == 0:
             continue
-        high_enough = altitude_deg(directions[block], track.zenith) >= min_altitude
-        moon_clear = (separation_deg(directions[block], track.moon_direction) >= moon_min_sep_deg) | ~moon_up
-        within_airmass = feasible_starts(high_enough, duration[block]).any(axis=1)
-        start_ok[block] = feasible_starts(high_enough & moon_clear, duration[block])
-        never = ~within_airmass
-        moon_blocked = within_airmass & ~start_ok[block].any(axis=1)
-        reason[block[never]] = NEVER_ABOVE_AIRMASS_LIMIT
+        altitude = altitude_deg(directions[block], track.zenith)
+        x = airmass_pickering(altitude)
+        separation = separation_deg(directions[block], track.moon_direction)
+        high_enough = altitude >= min_altitude
+        moon_clear = ((separation >= moon_min_sep_deg) | ~moon_up) & moon_allows
+        if instrument is not None:
+            sky = sky_mag_6708(instrument.sky_rc_mag_per_arcsec2, separation, 90.0 - np.maximum(altitude, 0.0),
+                               np.where(moon_up, 90.0 - track.moon_altitude_deg, 90.0), phase,
+                               site.extinction_6708)
+        else:
+            sky = np.full(x.shape, np.nan)
+        slots = slot_exposures(instrument, need[block], r_c[block], overhead[block], fixed[block], x, sky,
+                               step_s, site.extinction_6708)
+        d = np.maximum(np.ceil((overhead[block, None] + slots.exposure_s) / step_s - 1e-9), 1)
+        d = np.minimum(np.nan_to_num(d, nan=m), m).astype(np.int32)
+        within_airmass = feasible_starts(high_enough, d).any(axis=1)
+        ok = feasible_starts(high_enough & moon_clear, d)
+        start_ok[block] = ok
+        steps_of[block] = d
+        airmass[block] = x
+        slot_exposure[block] = slots.exposure_s
+        slot_snr[block] = slots.snr
+        slot_fraction[block] = slots.fraction
+        slot_airmass[block] = slots.airmass_mid
+        slot_sky[block] = slots.sky_mag
+        too_long = (d >= m - 1).all(axis=1)
+        moon_blocked = within_airmass & ~ok.any(axis=1)
+        reason[block[~within_airmass]] = NEVER_ABOVE_AIRMASS_LIMIT
+        reason[block[too_long]] = LONGER_THAN_WINDOW
         reason[block[moon_blocked]] = TOO_CLOSE_TO_MOON
 
-    eligible = np.where(reason == NO_TIME_LEFT, prio, np.nan)
-    start = greedy_schedule(start_ok, duration, eligible)
-    rank = greedy_rank(eligible)
+    eligible = reason == NO_TIME_LEFT
+    start_ok &= eligible[:, None]
+    value = np.where(start_ok, np.maximum(worth, 0.0)[:, None] * slot_fraction, 0.0)
+    positive = value[value > 0]
+    reference = float(positive.min()) if positive.size else 1.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bonus = np.where(start_ok, (TIE_BONUS * value + ZERO_BONUS * reference)
+                         / np.maximum(slot_airmass, 1.0), 0.0)
+
+    runs = []
+    began = time.perf_counter()
+    order_key = np.where(eligible, prio, np.nan)
+    greedy = greedy_schedule(start_ok, steps_of, order_key)
+    rank = greedy_rank(order_key)
+    planned = np.flatnonzero(greedy >= 0)
+    blocked = rank[eligible & (greedy < 0) & start_ok.any(axis=1)]
+    greedy[planned] = improve_by_swaps(greedy[planned], steps_of[planned], start_ok[planned],
+                                       airmass[planned], rank[planned], blocked, value[planned])
+    runs.append(SolverRun("greedy", "heuristic", _objective(value, greedy), float("nan"),
+                          int((greedy >= 0).sum()), _median_airmass(slot_airmass, greedy),
+                          time.perf_counter() - began))
+    start, used = greedy, "greedy"
+    if solver in ("auto", "milp"):
+        pairs = int(start_ok.sum())
+        stride = milp_stride or max(1, int(np.ceil(pairs / max(1, milp_max_variables))))
+        if solver == "auto" and stride > MAX_AUTO_STRIDE:
+            runs.append(SolverRun("milp", "not_run", float("nan"), float("nan"), 0, float("nan"), 0.0,
+                                  f"{pairs} candidate slots: too many for the exact solver (limit "
+                                  f"{milp_max_variables} at a stride of {MAX_AUTO_STRIDE} steps)"))
+        else:
+            result = solve_slot_milp(start_ok, steps_of, value, bonus, stride=stride, extra_starts=greedy,
+                                     time_limit_s=time_limit_s)
+            runs.append(SolverRun("milp", result.status, result.objective, result.gap,
+                                  int((result.start >= 0).sum()), _median_airmass(slot_airmass, result.start),
+                                  result.seconds, f"{result.variables} variables, {result.rows} rows, "
+                                                  f"start stride {result.stride} step(s)"))
+            if result.status != "no_solution" and result.objective >= runs[0].objective - 1e-12:
+                start, used = result.start, "milp"
+    objective = _objective(value, start)
+
     planned = np.flatnonzero(start >= 0)
     reason[planned] = SCHEDULED
-    planned_altitude = altitude_deg(directions[planned], track.zenith)
-    planned_airmass = airmass_pickering(planned_altitude)
-    start[planned] = improve_by_swaps(start[planned], duration[planned], start_ok[planned], planned_airmass,
-                                      rank[planned], rank[reason == NO_TIME_LEFT])
-
-    start_mjd = np.full(n, np.nan)
-    end_mjd = np.full(n, np.nan)
-    airmass_start = np.full(n, np.nan)
-    airmass_end = np.full(n, np.nan)
-    moon_sep = np.full(n, np.nan)
+    nan = np.full(n, np.nan)
+    start_mjd, end_mjd, duration_s = nan.copy(), nan.copy(), nan.copy()
+    airmass_start, airmass_end, airmass_mid = nan.copy(), nan.copy(), nan.copy()
+    moon_sep, exposure_out, snr_out, p_out, value_out, sky_out = (nan.copy() for _ in range(6))
     order = np.zeros(n, dtype=np.int64)
     if planned.size:
         s = start[planned]
+        d = steps_of[planned, s].astype(np.int64)
+        exposure_out[planned] = slot_exposure[planned, s]
+        snr_out[planned] = slot_snr[planned, s]
+        p_out[planned] = slot_fraction[planned, s]
+        value_out[planned] = value[planned, s]
+        sky_out[planned] = slot_sky[planned, s]
+        airmass_mid[planned] = slot_airmass[planned, s]
         start_mjd[planned] = grid[s]
-        end_mjd[planned] = grid[s] + (overhead_s + exposure[planned]) / 86400.0
+        duration_s[planned] = d * step_s
+        end_mjd[planned] = grid[s] + (overhead[planned] + exposure_out[planned]) / 86400.0
+        planned_airmass = airmass_pickering(altitude_deg(directions[planned], track.zenith))
         rows = np.arange(planned.size)
         airmass_start[planned] = planned_airmass[rows, s]
-        end_step = s + duration[planned]
-        steps_to_end = (overhead_s + exposure[planned]) / step_s
-        before_end = np.minimum(s + np.floor(steps_to_end).astype(np.int64), end_step)
-        after_end = np.minimum(before_end + 1, end_step)
-        weight = steps_to_end - np.floor(steps_to_end)
-        airmass_end[planned] = ((1 - weight) * planned_airmass[rows, before_end]
-                                + weight * planned_airmass[rows, after_end])
+        end_position = s + (overhead[planned] + exposure_out[planned]) / step_s
+        airmass_end[planned] = at_fractional_step(planned_airmass, end_position[:, None])[:, 0]
         sep = separation_deg(directions[planned], track.moon_direction)
         steps = np.arange(m)[None, :]
-        in_slot = (steps >= s[:, None]) & (steps <= end_step[:, None])
-        moon_sep[planned] = np.where(in_slot, sep, np.inf).min(axis=1)
+        in_slot = (steps >= s[:, None]) & (steps <= (s + d)[:, None])
+        moon_sep[planned] = np.where(in_slot & moon_up[None, :], sep, np.inf).min(axis=1)
+        moon_sep[planned] = np.where(np.isfinite(moon_sep[planned]), moon_sep[planned], np.nan)
         order[planned[np.argsort(s, kind="stable")]] = np.arange(1, planned.size + 1)
     return NightPlan(events=events, twilight=twilight, window_start_mjd=window_start,
-                     window_end_mjd=window_end, grid_mjd=grid, duration_s=duration * step_s,
+                     window_end_mjd=window_end, grid_mjd=grid, duration_s=duration_s,
                      start_mjd=start_mjd, end_mjd=end_mjd, order=order,
-                     airmass_start=airmass_start, airmass_end=airmass_end, moon_sep_deg=moon_sep,
-                     reason=reason, duration_steps=duration, start_ok=start_ok, rank=rank)
+                     airmass_start=airmass_start, airmass_end=airmass_end, airmass_mid=airmass_mid,
+                     moon_sep_deg=moon_sep, exposure_s=exposure_out, snr_expected=snr_out, p_snr=p_out,
+                     value=value_out, sky_mag=sky_out, overhead_s=overhead, reason=reason,
+                     slot_steps=steps_of, start_ok=start_ok, rank=rank, solver=used, runs=tuple(runs),
+                     objective=objective)

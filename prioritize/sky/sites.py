@@ -8,6 +8,11 @@ A site file holds::
     height_m = 4207.0             # above the ellipsoid (sea level is close enough for planning)
     timezone = "Pacific/Honolulu" # IANA name, used to read and show local times
     source = "where the coordinates come from"
+    extinction_6708 = 0.07        # optional: atmospheric extinction near 6708 A (mag per air mass)
+    extinction_source = "where the extinction coefficient comes from"
+
+Without ``extinction_6708`` the site gets :data:`DEFAULT_EXTINCTION_6708` (0.07 mag per
+air mass, the project's default near 6700 A at a good site; common practice).
 
 Unknown keys and out-of-range values raise :class:`~prioritize.errors.ConfigError`
 naming the key.
@@ -31,9 +36,12 @@ if TYPE_CHECKING:
 SITES_DIR = Path(__file__).resolve().parents[2] / "configs" / "sites"
 
 _REQUIRED = ("name", "latitude_deg", "longitude_deg", "height_m", "timezone")
-_OPTIONAL = ("source",)
+_OPTIONAL = ("source", "extinction_6708", "extinction_source")
 _RANGES = {"latitude_deg": (-90.0, 90.0), "longitude_deg": (-180.0, 360.0),
-           "height_m": (-500.0, 9000.0)}
+           "height_m": (-500.0, 9000.0), "extinction_6708": (0.0, 1.0)}
+DEFAULT_EXTINCTION_6708 = 0.07
+"""Atmospheric extinction near 6708 A (mag per air mass) for a site file without its own value:
+the project's default for a good site (La Silla 0.04-0.05, Mauna Kea 0.06-0.08; common practice)."""
 
 
 @dataclass(frozen=True)
@@ -54,6 +62,12 @@ class Site:
         IANA time-zone name (e.g. ``"Pacific/Honolulu"``) for local dates and times.
     source : str
         Where the coordinates come from.
+    extinction_6708 : float
+        Atmospheric extinction near 6708 A, magnitudes per air mass (0-1); it scales the
+        stellar flux by 10^(-0.4 k X) in the exposure of each slot and the scattered
+        moonlight (:mod:`prioritize.sky.moonlight`).
+    extinction_source : str
+        Where the extinction coefficient comes from.
     """
 
     name: str
@@ -62,6 +76,8 @@ class Site:
     height_m: float
     timezone: str
     source: str = ""
+    extinction_6708: float = DEFAULT_EXTINCTION_6708
+    extinction_source: str = "default for a good site near 6700 A (common practice)"
 
     def __post_init__(self):
         for key, (lo, hi) in _RANGES.items():
@@ -74,6 +90,7 @@ class Site:
         object.__setattr__(self, "longitude_deg", 180.0 if lon == -180.0 else lon)
         object.__setattr__(self, "latitude_deg", float(self.latitude_deg))
         object.__setattr__(self, "height_m", float(self.height_m))
+        object.__setattr__(self, "extinction_6708", float(self.extinction_6708))
         if not isinstance(self.name, str) or not self.name.strip():
             raise ConfigError("site key name must be non-empty text")
         try:
@@ -112,7 +129,7 @@ def site_from_dict(raw: dict, origin: str = "site file") -> Site:
     missing = [key for key in _REQUIRED if key not in raw]
     if missing:
         raise ConfigError(f"{origin}: missing key {missing[0]}; required keys: {', '.join(_REQUIRED)}")
-    for key in ("name", "timezone", "source"):
+    for key in ("name", "timezone", "source", "extinction_source"):
         if key in raw and not isinstance(raw[key], str):
             raise ConfigError(f"{origin}: site key {key} must be text, got {raw[key]!r}")
     try:
