@@ -288,7 +288,7 @@ def test_night_command_end_to_end(tmp_path, small_table):
     assert written.loc[written["reason"] != "scheduled", "order"].isna().all()
     assert written.set_index("star_id").loc["HD1005", "exposure_s"] == 900
     text = (tmp_path / "plan.txt").read_text()
-    assert "left out" in text and "status_not_ok" in text and "nautical twilight ends 19:19" in text
+    assert "never planned" in text and "status_not_ok" in text and "nautical twilight ends 19:19" in text
 
 
 def test_night_command_one_line_errors(tmp_path, small_table):

@@ -352,10 +352,31 @@ def test_season_command_end_to_end(tmp_path):
     assert result.exit_code == 0, result.output
     assert out.exists() and (tmp_path / "season.png").stat().st_size > 0
     written = pd.read_parquet(out)
-    assert list(written.columns) == ["star_id", "2027-04_hours", "2027-05_hours", "total_hours", "reason"]
+    assert list(written.columns) == ["star_id", "priority", "2027-04_hours", "2027-05_hours", "total_hours",
+                                     "reason"]
     assert list(written["reason"]) == ["ok", "ok", "no_coordinates", "status_not_ok"]
     assert written.loc[0, "total_hours"] == pytest.approx(written.loc[0, "2027-04_hours"]
                                                           + written.loc[0, "2027-05_hours"], abs=0.02)
+
+
+def test_season_table_ordered_by_priority_and_every_target_in_the_figure_pages(tmp_path):
+    import pandas as pd
+
+    rng = np.random.default_rng(4)
+    n = 7
+    table = pd.DataFrame({"star_id": [f"V5-{i}" for i in range(n)], "ra_deg": rng.uniform(0, 360, n),
+                          "dec_deg": rng.uniform(-60, 20, n), "priority": rng.random(n)})
+    source = tmp_path / "ranked.csv"
+    table.to_csv(source, index=False)
+    out = tmp_path / "season.csv"
+    result = CliRunner().invoke(_app(), ["season", str(source), "--site", "paranal", "--start", "2027-04-28",
+                                         "--end", "2027-04-30", "--figure-rows", "3", "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    written = pd.read_csv(out)
+    assert list(written["star_id"]) == list(table.sort_values("priority", ascending=False)["star_id"])
+    assert np.allclose(written["priority"], np.sort(table["priority"])[::-1])
+    pages = sorted(p.name for p in tmp_path.glob("season*.png"))
+    assert pages == ["season.png", "season_2.png", "season_3.png"]      # 7 targets, 3 per page
 
 
 def test_season_command_one_line_errors(tmp_path):

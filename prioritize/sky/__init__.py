@@ -6,7 +6,11 @@ Layout (one module per concept):
 - ``sites``         observing sites (TOML presets in ``configs/sites/`` and user files)
 - ``observability`` Sun, Moon and target altitudes, air mass, twilight and Moon events (pure numpy
                     after a few astropy calls for time scales, sidereal time, frames, Sun and Moon)
+- ``moonlight``     sky brightness near 6708 A with the Moon up (Krisciunas & Schaefer 1991)
+- ``slots``         the exposure each slot needs and the S/N it reaches (air mass, extinction, sky)
+- ``milp``          the night plan as a time-slot mixed-integer programme (scipy / HiGHS)
 - ``schedule``      the night plan: which target to observe when, and why the others are left out
+- ``nights``        several nights in a row, targets carried until their S/N is reached
 - ``season``        hours each target is observable in dark time per month of a semester
 - ``commands``      the ``night`` and ``season`` command-line functions (I/O edge)
 

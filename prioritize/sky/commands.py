@@ -153,13 +153,15 @@ def _ranked_inputs(table, priority_column, exposure_default, overhead_option, in
     if name is None and "instrument" in table.columns:
         names = {str(v) for v in table["instrument"].dropna() if str(v).strip()}
         name = next(iter(names)) if len(names) == 1 else None
+    instrument_note = ""
     if name is not None:
         try:
             instrument = load_instrument(name)
         except PrioritizeError:
             if instrument_option is not None:
                 raise
-            instrument = None
+            instrument_note = (f"the table's instrument {name!r} is not a preset: exposures as given "
+                               "(pass its TOML file with --instrument to recompute them per slot)")
     columns = set(table.columns)
     snr_needed = _numeric(table, "snr_needed") if "snr_needed" in columns else np.full(n, np.nan)
     r_c = _numeric(table, "r_c_mag") if "r_c_mag" in columns else np.full(n, np.nan)
@@ -184,7 +186,8 @@ def _ranked_inputs(table, priority_column, exposure_default, overhead_option, in
             converted = np.where(fraction > 0, per_visit / fraction, 0.0)
         detections = np.where(np.isfinite(converted), converted, detections)
     return dict(priority=priority, detections=detections, exposure_s=exposure_s, overhead_s=overhead,
-                overhead_source=overhead_source, snr_needed=snr_needed, r_c_mag=r_c, instrument=instrument)
+                overhead_source=overhead_source, snr_needed=snr_needed, r_c_mag=r_c, instrument=instrument,
+                instrument_note=instrument_note)
 
 
 def night_command(
@@ -281,7 +284,8 @@ def night_command(
         plan_table = _night_table(table, numbers, inputs, keep, result, the_site, SCHEDULED, STATUS_NOT_OK)
         settings = dict(airmass_max=airmass_max, moon_min_sep=moon_min_sep, moon_max_illum=moon_max_illum,
                         overhead_source=inputs["overhead_source"],
-                        instrument=inputs["instrument"].name if inputs["instrument"] else None)
+                        instrument=inputs["instrument"].name if inputs["instrument"] else None,
+                        instrument_note=inputs["instrument_note"])
         text = _night_text(plan_table, result, the_site, settings, SCHEDULED)
         typer.echo(text)
         if output is not None:
@@ -404,6 +408,8 @@ def _night_text(plan_table, result, site, settings, scheduled) -> str:
              f"Exposures for each slot: {settings['instrument'] or 'as given (no instrument known)'}, "
              f"extinction {site.extinction_6708:g} mag/air mass at 6708 A ({site.extinction_source}); "
              "Moon sky from Krisciunas & Schaefer 1991"]
+    if settings["instrument_note"]:
+        lines.append(f"Note: {settings['instrument_note']}")
     for date, plan in zip(result.dates, result.plans):
         ev = plan.events
         track = ev.track
@@ -417,9 +423,6 @@ def _night_text(plan_table, result, site, settings, scheduled) -> str:
                   f"Moon: rises {', '.join(hm(t) for t in ev.moonrise_mjd) or '-'}, sets "
                   f"{', '.join(hm(t) for t in ev.moonset_mjd) or '-'}; {illum}"]
         for run in plan.runs:
-            if run.status == "not_run":
-                lines.append(f"  {run.solver}: not run ({run.note})")
-                continue
             gap = f", gap {run.gap:.2%}" if np.isfinite(run.gap) else ""
             lines.append(f"  {run.solver}: {run.status}{gap}, expected detections {run.objective:.4g}, "
                          f"{run.planned} planned, median air mass {run.median_airmass:.3f}, "

@@ -5,31 +5,44 @@ Method
 1. The dark window runs from the end of evening twilight to the start of morning
    twilight (nautical by default: bright stars at 6708 Å tolerate the sky of
    nautical twilight).  It is cut into steps of ``step_s`` seconds (60 s).
-2. Each target needs a slot of ``overhead_s + exposure_s`` rounded up to whole
-   steps.  A slot starting at step s is *feasible* for a target when at every
-   grid time from its start to its end (both included) the target's air mass is
+2. A slot starting at step s holds the target's overhead and then its exposure,
+   rounded up to whole steps.  The exposure is recomputed for the slot
+   (:mod:`prioritize.sky.slots`: the air mass with the site's extinction at 6708 Å,
+   the Moon's sky by Krisciunas & Schaefer 1991) where the S/N needed and the
+   magnitude are known; otherwise it is the given one.  A start is *feasible* when
+   at every grid time from its start to its end (both included) the air mass is
    ≤ the limit and, whenever the Moon is up, the Moon is at least the minimum
-   separation away.
-3. Greedy by priority: targets in decreasing priority (ties: input order) each
-   take the earliest feasible slot not overlapping the slots already taken.
-4. Local improvement: adjacent slots are swapped (each keeps its length, so the
-   occupied time does not change) when both stay feasible, the sum of the two
-   targets' mean air masses over their slots falls, and no target left out for
-   lack of time ranks between the two; repeated until no swap helps.  The set
-   of planned targets is that of step 3.
+   separation away and no brighter than the illumination limit.
+3. The slot's value is the target's expected detections × P(the slot reaches its
+   S/N) = min(1, (S/N reached / S/N needed)²).  The plan maximises the summed value.
+4. Exact solver (:mod:`prioritize.sky.milp`): the time-slot assignment as a MILP
+   solved by HiGHS within a time limit; for long lists its start grid is coarsened
+   (to 8 steps at most) so that it keeps at most ``milp_max_variables`` variables,
+   and beyond that it works on the targets with the most detections per slot
+   minute plus those of the greedy plan.  The greedy plan's starts are always
+   candidates, so its optimum is never below the greedy's.
+   A bonus of at most 0.1% of the value breaks ties towards low air mass.
+5. Greedy (always run; the plan when the MILP does not run or does worse): targets
+   in decreasing priority (ties: input order) each take the earliest feasible slot
+   not overlapping the slots already taken; then adjacent slots are swapped when
+   both stay feasible, the value does not fall, the sum of the two targets' mean
+   air masses falls, and no target left out for lack of time ranks between the two.
 
 Guarantees (checked by the tests):
 
 - no two slots overlap, and every slot lies inside the dark window;
 - every planned target is within the limits for its whole slot;
-- a target is left out for ``no_time_left`` only if, in the final plan, no
+- the exact solver's objective equals the optimum of exhaustive search on small
+  problems, and is at least the greedy's;
+- greedy plans: a target is left out for ``no_time_left`` only if, in the final plan, no
   feasible slot is free of the targets ranked above it: no lower-priority
   target takes time that a higher-priority one could have used; in
   particular no left-out target fits in any gap of the plan.
 
 Reason codes for targets left out: ``no_coordinates``, ``no_priority``,
 ``invalid_exposure``, ``longer_than_dark_window``, ``never_above_airmass_limit``,
-``too_close_to_moon``, ``no_time_left`` (``status_not_ok`` is added by the
+``too_close_to_moon`` (separation or illumination), ``zero_priority`` (unless
+allowed), ``no_time_left`` (``status_not_ok`` is added by the
 command for rows the ranking did not compute).  Planned targets carry
 ``scheduled``.
 
@@ -73,7 +86,7 @@ NO_TIME_LEFT = "no_time_left"
 ZERO_PRIORITY = "zero_priority"
 STATUS_NOT_OK = "status_not_ok"
 SOLVERS = ("auto", "milp", "greedy")
-MAX_AUTO_STRIDE = 10      # the MILP runs by itself only while its starts are at most 10 steps apart
+MAX_AUTO_STRIDE = 8       # coarsest start grid of the MILP (steps); longer lists are cut to a subset
 TIE_BONUS = 1e-3          # ties broken towards low air mass: at most 0.1% of the objective
 ZERO_BONUS = 1e-6         # a zero-priority target (when allowed) is worth 1e-6 of the smallest value
 
@@ -260,8 +273,7 @@ class SolverRun:
     solver : str
         ``"milp"`` or ``"greedy"``.
     status : str
-        ``"optimal"``, ``"time_limit"``, ``"no_solution"``, ``"heuristic"`` (greedy) or
-        ``"not_run"`` (with the reason in ``note``).
+        ``"optimal"``, ``"time_limit"``, ``"no_solution"`` or ``"heuristic"`` (greedy).
     objective : float
         Expected detections of the plan (sum over planned targets of value x P).
     gap : float
@@ -273,7 +285,7 @@ class SolverRun:
     seconds : float
         Wall time.
     note : str
-        Size of the programme, or why it did not run.
+        Size of the programme (and the subset of targets it worked on, if any).
     """
 
     solver: str
@@ -382,7 +394,7 @@ def _check_limits(airmass_max, moon_min_sep_deg, overhead_s, step_s, moon_max_il
         raise PrioritizeError(f"solver must be one of {', '.join(SOLVERS)}, got {solver!r}")
 
 
-def _median_airmass(airmass_mid, start, rows=None) -> float:
+def _median_airmass(airmass_mid, start) -> float:
     planned = np.flatnonzero(start >= 0)
     if planned.size == 0:
         return float("nan")
@@ -437,8 +449,11 @@ def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s,
     include_zero_priority : bool
         Plan targets of priority 0 in time nobody else can use.
     solver : {"auto", "milp", "greedy"}
-        ``auto``: the MILP when the programme has at most ``milp_max_variables``
-        variables at a start stride of at most :data:`MAX_AUTO_STRIDE` steps, else the greedy.
+        ``auto`` and ``milp``: the greedy, then the MILP (its plan kept unless it does
+        worse); the MILP's start stride grows until it has at most ``milp_max_variables``
+        variables; beyond a stride of :data:`MAX_AUTO_STRIDE` steps it keeps that stride
+        and works on the targets with the most detections per slot minute plus the
+        greedy's (the note of its run says so).  ``greedy``: the greedy only.
     time_limit_s : float
         Wall-time limit of the MILP.
     milp_max_variables : int
@@ -564,20 +579,31 @@ def plan_night(site: Site, date: dt.date, ra_deg, dec_deg, priority, exposure_s,
     start, used = greedy, "greedy"
     if solver in ("auto", "milp"):
         pairs = int(start_ok.sum())
+        subset_note = ""
+        milp_ok = start_ok
         stride = milp_stride or max(1, int(np.ceil(pairs / max(1, milp_max_variables))))
-        if solver == "auto" and stride > MAX_AUTO_STRIDE:
-            runs.append(SolverRun("milp", "not_run", float("nan"), float("nan"), 0, float("nan"), 0.0,
-                                  f"{pairs} candidate slots: too many for the exact solver (limit "
-                                  f"{milp_max_variables} at a stride of {MAX_AUTO_STRIDE} steps)"))
-        else:
-            result = solve_slot_milp(start_ok, steps_of, value, bonus, stride=stride, extra_starts=greedy,
-                                     time_limit_s=time_limit_s)
-            runs.append(SolverRun("milp", result.status, result.objective, result.gap,
-                                  int((result.start >= 0).sum()), _median_airmass(slot_airmass, result.start),
-                                  result.seconds, f"{result.variables} variables, {result.rows} rows, "
-                                                  f"start stride {result.stride} step(s)"))
-            if result.status != "no_solution" and result.objective >= runs[0].objective - 1e-12:
-                start, used = result.start, "milp"
+        if milp_stride is None and stride > MAX_AUTO_STRIDE:
+            # long list: the exact solver works on the most promising targets (detections per
+            # minute of slot) plus every target of the greedy plan, at a stride of MAX_AUTO_STRIDE
+            stride = MAX_AUTO_STRIDE
+            with np.errstate(divide="ignore", invalid="ignore"):
+                density = np.where(start_ok, value / steps_of, 0.0).max(axis=1)
+            preference = np.lexsort((-density, ~(greedy >= 0)))
+            per_target = np.ceil(start_ok.sum(axis=1) / stride)[preference]
+            take = preference[np.cumsum(per_target) <= milp_max_variables]
+            take = np.union1d(take, np.flatnonzero(greedy >= 0))
+            milp_ok = np.zeros_like(start_ok)
+            milp_ok[take] = start_ok[take]
+            subset_note = (f"; restricted to {take.size} of {int(start_ok.any(axis=1).sum())} targets "
+                           "(best detections per slot minute, and the greedy's): the gap is within that set")
+        result = solve_slot_milp(milp_ok, steps_of, value, bonus, stride=stride, extra_starts=greedy,
+                                 time_limit_s=time_limit_s)
+        runs.append(SolverRun("milp", result.status, result.objective, result.gap,
+                              int((result.start >= 0).sum()), _median_airmass(slot_airmass, result.start),
+                              result.seconds, f"{result.variables} variables, {result.rows} rows, "
+                                              f"start stride {result.stride} step(s){subset_note}"))
+        if result.status != "no_solution" and result.objective >= runs[0].objective - 1e-12:
+            start, used = result.start, "milp"
     objective = _objective(value, start)
 
     planned = np.flatnonzero(start >= 0)

@@ -65,7 +65,7 @@ def at_fractional_step(grid_values, position) -> np.ndarray:
     """Linear interpolation of ``(n, m)`` grid values at fractional steps ``position`` ``(n, m)``."""
     values = np.asarray(grid_values, dtype=float)
     m = values.shape[1]
-    pos = np.clip(np.asarray(position, dtype=float), 0.0, m - 1.0)
+    pos = np.clip(np.nan_to_num(np.asarray(position, dtype=float), nan=0.0), 0.0, m - 1.0)
     lo = np.minimum(np.floor(pos).astype(np.int64), m - 1)
     hi = np.minimum(lo + 1, m - 1)
     w = pos - lo
@@ -113,7 +113,7 @@ def slot_exposures(instrument, snr_needed, r_c_mag, overhead_s, fixed_exposure_s
     fraction = np.ones((n, m))
     sky_used = np.full((n, m), np.nan)
     begin = steps + overhead / step_s
-    airmass_mid = at_fractional_step(airmass, begin + fixed / (2 * step_s))
+    airmass_mid = at_fractional_step(airmass, begin + np.nan_to_num(fixed) / (2 * step_s))
     rows = np.flatnonzero(computed[:, 0])
     if rows.size:
         inst = instrument
