@@ -285,3 +285,13 @@ def test_night_command_exports_sexagesimal_ecsv_and_log(tmp_path):
     allowed = CliRunner().invoke(_app(), ["night", str(path), "--site", "mauna-kea", "--date", "2027-03-15",
                                           "--include-zero-priority"])
     assert allowed.exit_code == 0 and "zero_priority" not in allowed.output
+
+
+def test_night_command_refuses_an_unwritable_output_before_planning(tmp_path):
+    table = pd.DataFrame({"star_id": ["V5-1"], "ra_deg": [150.0], "dec_deg": [20.0], "priority": [1.0]})
+    path = tmp_path / "ranked.csv"
+    table.to_csv(path, index=False)
+    result = CliRunner().invoke(_app(), ["night", str(path), "--site", "mauna-kea", "--date", "2027-03-15",
+                                         "-o", str(tmp_path / "missing" / "plan.csv")])
+    assert result.exit_code == 2
+    assert "does not exist" in result.stderr and "Night plan" not in result.output

@@ -269,6 +269,10 @@ def night_command(
         dates = night_dates(first, nights, last)
         if len(dates) > 366:
             raise PrioritizeError(f"{len(dates)} nights asked for; plan at most 366 at a time")
+        if output is not None:
+            from ..catalog.io import check_output_path
+
+            check_output_path(output, [ranked])
         table, numbers, skip = _read_targets(ranked, priority_column)
         inputs = _ranked_inputs(table, priority_column, exposure, overhead, instrument)
         keep = np.flatnonzero(skip == "")
