@@ -107,6 +107,8 @@ def _atomic_write(path: Path, write) -> None:
 
 def _beside(output: Path, ending: str) -> Path:
     """``plan.csv`` -> ``plan<ending>`` (e.g. ``plan_log.txt``), in the same folder."""
+    from ..catalog.io import companion_path
+
     stem = companion_path(output, ".x")
     return stem.with_name(stem.name[:-2] + ending)
 
@@ -142,6 +144,8 @@ def _ranked_inputs(table, priority_column, exposure_default, overhead_option, in
     target / the ranked fraction of the S/N reached (i.e. P(engulfed) x P(detect) x the
     cool-star factor of the ranking); without those columns, the priority itself.
     """
+    import numpy as np
+
     from ..instruments import load_instrument
 
     n = len(table)
@@ -323,8 +327,9 @@ def night_command(
 
 def _sexagesimal(ra_deg, dec_deg):
     """RA as hh:mm:ss.ss and Dec as +dd:mm:ss.s (ICRS), empty where unknown."""
-    from astropy.coordinates import Angle
     import astropy.units as u
+    import numpy as np
+    from astropy.coordinates import Angle
 
     ra = np.asarray(ra_deg, dtype=float)
     dec = np.asarray(dec_deg, dtype=float)
@@ -340,6 +345,8 @@ def _sexagesimal(ra_deg, dec_deg):
 
 def _night_table(table, numbers, inputs, keep, result, site, scheduled, status_not_ok):
     """One row per planned visit (night, order), then every row never planned, with its reason."""
+    import numpy as np
+
     import pandas as pd
 
     zone = site.zone
@@ -397,6 +404,8 @@ def _night_table(table, numbers, inputs, keep, result, site, scheduled, status_n
 
 
 def _night_text(plan_table, result, site, settings, scheduled) -> str:
+    import numpy as np
+
     zone = site.zone
 
     def hm(mjd):
@@ -458,6 +467,8 @@ def _night_text(plan_table, result, site, settings, scheduled) -> str:
 
 def _telescope_log(plan_table, site, scheduled) -> str:
     """Plain list for the night log: one line per planned visit, UT order, J2000/ICRS coordinates."""
+    import numpy as np
+
     rows = plan_table[plan_table["reason"] == scheduled]
     lines = [f"# {site.name}: planned targets (planning estimate; coordinates ICRS ~ J2000, "
              "catalog epoch, no proper motion)",
@@ -482,6 +493,8 @@ def _night_figure(plan, site, ra_deg, dec_deg, star_ids, priority, airmass_max):
     labelled with the star's identifier where the label does not collide with another.
     Twilight is shaded, the Moon's altitude dashed.
     """
+    import numpy as np
+
     import datetime as _dt
 
     from matplotlib import colormaps
@@ -699,6 +712,8 @@ def season_command(
 
 def _season_figure(shown, season, site, first, last, airmass_max, has_priority, page, pages):
     """Heat map of one page of targets (rows in priority order), with the dark hours on top."""
+    import numpy as np
+
     from matplotlib.figure import Figure
 
     columns = [f"{m}_hours" for m in season.months]
