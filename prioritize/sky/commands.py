@@ -107,7 +107,7 @@ def _atomic_write(path: Path, write) -> None:
 
 def _beside(output: Path, ending: str) -> Path:
     """``plan.csv`` -> ``plan<ending>`` (e.g. ``plan_log.txt``), in the same folder."""
-    from ..catalog.io import companion_path
+    from ..catalog.formats import companion_path
 
     stem = companion_path(output, ".x")
     return stem.with_name(stem.name[:-2] + ending)
@@ -261,8 +261,6 @@ def night_command(
     import numpy as np
     from ..catalog.formats import companion_path
     with one_line_errors():
-        from .nights import night_dates, plan_nights
-        from .schedule import SCHEDULED, STATUS_NOT_OK
         from .sites import load_site
 
         the_site = load_site(site)
@@ -270,13 +268,16 @@ def night_command(
         last = _parse_date(end, "--end") if end else None
         if last is not None and last < first:
             raise PrioritizeError(f"--end {last} is before --date {first}")
-        dates = night_dates(first, nights, last)
-        if len(dates) > 366:
-            raise PrioritizeError(f"{len(dates)} nights asked for; plan at most 366 at a time")
+        if last is not None and (last - first).days >= 366:
+            raise PrioritizeError(f"{(last - first).days + 1} nights asked for; plan at most 366 at a time")
         if output is not None:
-            from ..catalog.io import check_output_path
+            from ..catalog.formats import check_output_path
 
-            check_output_path(output, [ranked])
+            check_output_path(output, [ranked])        # a bad output fails before the plan is made
+        from .nights import night_dates, plan_nights
+        from .schedule import SCHEDULED, STATUS_NOT_OK
+
+        dates = night_dates(first, nights, last)
         table, numbers, skip = _read_targets(ranked, priority_column)
         inputs = _ranked_inputs(table, priority_column, exposure, overhead, instrument)
         keep = np.flatnonzero(skip == "")
