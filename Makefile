@@ -4,7 +4,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 PIP    := $(VENV)/bin/pip
 
-.PHONY: demo test bench grid clean
+.PHONY: demo test bench grid clean check-report
 
 $(VENV)/bin/activate:
 	$(PYTHON) -m venv $(VENV)
@@ -28,6 +28,11 @@ test: $(VENV)/.testdeps
 
 bench: $(VENV)/.testdeps
 	$(PY) benchmarks/run_all.py
+
+# Render the report in headless Chromium and check the screenshot is not blank.
+check-report: $(VENV)/.runtime
+	@test -x /usr/bin/chromium || (apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends chromium)
+	$(PY) scripts/check_report.py --screenshot report_screenshot.png
 
 # Rebuild the shipped track grid (needs the `grid` extra; see DEVELOPERS.md).
 grid: $(VENV)/.testdeps

@@ -19,6 +19,7 @@ from . import CAUTION, __version__
 from .console import friendly
 from .errors import PrioritizeError
 from .map_command import map_command
+from .report.command import report_command
 from .sky.commands import night_command, season_command
 
 app = typer.Typer(
@@ -172,6 +173,8 @@ def rank(
     workers: Optional[int] = typer.Option(None, "--workers", min=1,
                                           help="Processes that rank batches in parallel (default: the "
                                                "cores available); the result does not depend on it."),
+    report: bool = typer.Option(False, "--report", help="Also write the HTML report "
+                                                        "(<output stem>_report.html and its figures)."),
     overrides: Optional[dict] = None,
 ):
     """Rank a candidate catalog: enrichment significance, lifetime and priority per star.
@@ -194,6 +197,19 @@ def rank(
     typer.echo("")
     typer.echo(status_summary(ranked))
     typer.echo(f"Ranked table written to {output}")
+    if report:
+        _write_report(ranked, cfg, catalog, output)
+
+
+def _write_report(ranked, cfg, catalog, output: Path) -> None:
+    """The HTML report of a ranked table just written (``<stem>_report.html`` beside it)."""
+    from .catalog.io import catalog_stem
+    from .report.command import report_paths_text
+    from .report.proposal import build_report, write_report
+
+    html = output.with_name(f"{catalog_stem(output)}_report.html")
+    meta = _metadata(cfg, catalog)
+    typer.echo(report_paths_text(write_report(build_report(ranked, meta, str(output)), html)))
 
 
 @app.command()
@@ -281,12 +297,15 @@ def demo(
         typer.echo(f"== {title}: {path.name}")
         typer.echo(top_table(ranked, 10))
         typer.echo(status_summary(ranked))
-        typer.echo(f"Ranked table written to {out}\n")
+        typer.echo(f"Ranked table written to {out}")
+        _write_report(ranked, cfg, path, out)
+        typer.echo("")
 
 
 app.command("map")(map_command)
 app.command("night")(night_command)
 app.command("season")(season_command)
+app.command("report")(report_command)
 
 
 def main():

@@ -48,7 +48,8 @@ def _decorate_map(ax, table, masses, eeps, favourable, too_old, window):
         ax.axhline(bounds[name], color="0.35", lw=0.7, ls=":")
     bump_m, bump_e = _bump_line(table)
     ax.plot(bump_m, bump_e, color="0.35", lw=0.9, ls="--")
-    _outline(ax, masses, eeps, favourable, colors="cyan", linewidths=1.8)
+    _outline(ax, masses, eeps, favourable, colors="black", linewidths=2.4)
+    _outline(ax, masses, eeps, favourable, colors="white", linewidths=0.8)
     if too_old.any() and masses.size > 1 and eeps.size > 1:
         ax.contourf(masses, eeps, too_old.astype(float), levels=[0.5, 1.5], colors="none",
                     hatches=["////"])
@@ -62,8 +63,9 @@ def _decorate_map(ax, table, masses, eeps, favourable, too_old, window):
                "upper_giant_branch": bounds["giant_branch"] + 0.85 * (bounds["tip"] - bounds["giant_branch"])}
     for stage, eep in centres.items():
         if eeps.min() <= eep <= eeps.max():
-            ax.text(1.01, eep, _STAGE_LABELS[stage], transform=ax.get_yaxis_transform(),
-                    va="center", ha="left", fontsize=7, color="0.25")
+            ax.text(0.99, eep, _STAGE_LABELS[stage], transform=ax.get_yaxis_transform(),
+                    va="center", ha="right", fontsize=8, color="0.1",
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.75})
     ax.set_xlim(masses.min(), masses.max())
     ax.set_ylim(eeps.min(), eeps.max())
     ax.set_xlabel("initial mass (M$_\\odot$)")
@@ -92,45 +94,93 @@ def detectability_figure(table: pd.DataFrame, z_threshold: float, min_lifetime_m
     Returns
     -------
     matplotlib.figure.Figure
-        Dotted lines: start of the turn-off, subgiant branch and giant branch; dashed
-        grey: the lower/upper giant-branch split (RGB bump); cyan outline: the
-        favourable region; hatched: older than 13.8 Gyr.
+        Every mark is in the legend below the panels: dotted lines, the start of the
+        turn-off, subgiant branch and giant branch; dashed grey, the lower/upper
+        giant-branch split (RGB bump); black-and-white outline, the favourable region;
+        white dashes, the threshold contour of each panel; hatched, older than 13.8
+        Gyr; light grey cells, no signature.  The caution is a footnote.
     """
-    from matplotlib import colormaps
-    from matplotlib.colors import Normalize
-    from matplotlib.figure import Figure
 
     masses, eeps, z = _grid(table, "z_enrich")
     life = _grid(table, "lifetime_myr")[2]
     favourable = _grid(table, "favourable")[2].astype(bool)
     too_old = _grid(table, "age_gyr")[2] * 1e3 > MAX_AGE_MYR
-    panels = 3 if window is not None else 2
-    fig = Figure(figsize=(6.2 * panels, 5.6), layout="constrained")
-    axes = fig.subplots(1, panels)
+    import matplotlib
+
+    with matplotlib.rc_context(MAP_STYLE):
+        return _detectability_figure(table, z_threshold, min_lifetime_myr, window, title,
+                                     masses, eeps, z, life, favourable, too_old)
+
+
+def _detectability_figure(table, z_threshold, min_lifetime_myr, window, title, masses, eeps, z, life,
+                          favourable, too_old):
+    from matplotlib import colormaps
+    from matplotlib.colors import Normalize
+    from matplotlib.figure import Figure
+
+    if window is not None:
+        fig = Figure(figsize=(11.0, 9.6), layout="constrained")
+        grid = fig.add_gridspec(2, 2)
+        axes = [fig.add_subplot(grid[0, 0]), fig.add_subplot(grid[0, 1]), fig.add_subplot(grid[1, 0])]
+    else:
+        fig = Figure(figsize=(11.0, 6.2), layout="constrained")
+        axes = list(fig.subplots(1, 2))
     z_map = colormaps["magma"].with_extremes(bad="0.85")
     top = np.nanmax(z) if np.isfinite(z).any() else 0.0
     top = max(min(top, Z_COLOUR_MAX_SIGMA), 2.0 * z_threshold)
     mesh = axes[0].pcolormesh(masses, eeps, np.ma.masked_invalid(z), shading="nearest", cmap=z_map,
                               norm=Normalize(0.0, top))
-    fig.colorbar(mesh, ax=axes[0], label="enrichment significance z (σ)", pad=0.16)
+    fig.colorbar(mesh, ax=axes[0], label="enrichment significance z (σ)")
     _outline(axes[0], masses, eeps, np.nan_to_num(z) >= z_threshold, colors="white",
              linewidths=0.9, linestyles="--")
-    axes[0].set_title(f"significance z (dashed: z = {z_threshold:g})", fontsize=10)
+    axes[0].set_title("significance z of the signature")
     with np.errstate(divide="ignore", invalid="ignore"):
         log_life = np.where(life > 0, np.log10(life), np.nan)
     life_map = colormaps["viridis"].with_extremes(bad="0.85")
     mesh = axes[1].pcolormesh(masses, eeps, np.ma.masked_invalid(log_life), shading="nearest",
                               cmap=life_map)
-    fig.colorbar(mesh, ax=axes[1], label="log$_{10}$ lifetime of the signature (Myr)", pad=0.16)
+    fig.colorbar(mesh, ax=axes[1], label="log$_{10}$ lifetime of the signature (Myr)")
     _outline(axes[1], masses, eeps, np.nan_to_num(life) >= max(min_lifetime_myr, 1e-9),
              colors="white", linewidths=0.9, linestyles="--")
-    axes[1].set_title(f"lifetime (grey: no signature; dashed: {min_lifetime_myr:g} Myr)", fontsize=10)
+    axes[1].set_title("lifetime of the signature")
     for ax in axes[:2]:
         _decorate_map(ax, table, masses, eeps, favourable, too_old, window)
     if window is not None:
         _colour_magnitude(fig, axes[2], window)
-    fig.suptitle(f"{title}\n{CAUTION}" if title else CAUTION, fontsize=10)
+    _map_legend(fig, z_threshold, min_lifetime_myr, too_old.any(), window is not None)
+    if title:
+        fig.suptitle(title)
     return fig
+
+
+def _map_legend(fig, z_threshold, min_lifetime_myr, any_too_old, cluster):
+    """One legend for every mark of the map, and the caution as a footnote."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+    from matplotlib.patheffects import withStroke
+
+    handles = [Line2D([], [], color="0.35", lw=0.7, ls=":"), Line2D([], [], color="0.35", lw=0.9, ls="--"),
+               Line2D([], [], color="black", lw=2.4),
+               Line2D([], [], color="white", lw=0.9, ls="--", path_effects=[withStroke(linewidth=3, foreground="0.3")]),
+               Patch(facecolor="0.85", edgecolor="0.6")]
+    labels = ["start of the turn-off, subgiant branch, giant branch (EEP 170, 200, 280)",
+              "RGB bump: lower / upper giant branch",
+              f"favourable region: z ≥ {z_threshold:g} σ and lifetime ≥ {min_lifetime_myr:g} Myr",
+              f"threshold contour: z = {z_threshold:g} σ (left), lifetime = {min_lifetime_myr:g} Myr (right)",
+              "no signature computed (no envelope model or no track there)"]
+    if any_too_old:
+        handles.append(Patch(facecolor="none", edgecolor="0.3", hatch="////"))
+        labels.append("hatched: older than the Universe (13.8 Gyr), never favourable")
+    if cluster:
+        handles.append(Line2D([], [], color="black", lw=1.6))
+        labels.append("the cluster's isochrone (black; right panel: colour–magnitude)")
+    fig.legend(handles, labels, loc="outside lower center", ncols=2, frameon=False,
+               title=f"Caution: {CAUTION}")
+
+
+MAP_STYLE = {"font.size": 9.0, "axes.titlesize": 10.0, "axes.labelsize": 9.0, "xtick.labelsize": 8.5,
+             "ytick.labelsize": 8.5, "legend.fontsize": 8.5, "figure.titlesize": 10.0}
+"""Text sizes of the map figure (pt at the written size; nothing below 8)."""
 
 
 def _colour_magnitude(fig, ax, window: pd.DataFrame):
@@ -138,18 +188,18 @@ def _colour_magnitude(fig, ax, window: pd.DataFrame):
     ax.plot(window["bp_rp"], window["g_mag"], color="0.6", lw=1.0, label="isochrone")
     fav = window[window["favourable"].astype(bool)]
     if not fav.empty:
-        points = ax.scatter(fav["bp_rp"], fav["g_mag"], c=fav["z_enrich"], cmap="magma", s=18,
-                            edgecolors="cyan", linewidths=0.6, zorder=3, label="favourable")
+        points = ax.scatter(fav["bp_rp"], fav["g_mag"], c=fav["z_enrich"], cmap="magma", s=22,
+                            edgecolors="black", linewidths=0.6, zorder=3, label="favourable point (colour: z)")
         fig.colorbar(points, ax=ax, label="z (σ) of favourable points")
     for stage in STAGES:
         s = window[(window["stage"] == stage) & np.isfinite(window["g_mag"]) & np.isfinite(window["bp_rp"])]
         if len(s):
             mid = s.iloc[len(s) // 2]
             ax.annotate(_STAGE_LABELS.get(stage, stage.replace("_", " ")), (mid["bp_rp"], mid["g_mag"]),
-                        fontsize=7, color="0.3", xytext=(4, 0), textcoords="offset points")
+                        fontsize=8, color="0.2", xytext=(4, 0), textcoords="offset points")
     if np.isfinite(window["g_mag"]).any():
         ax.invert_yaxis()
     ax.set_xlabel("BP − RP (mag, reddened)")
     ax.set_ylabel("G (mag)")
-    ax.set_title("cluster members along the isochrone", fontsize=10)
+    ax.set_title("cluster members along the isochrone")
     ax.legend(loc="lower left", fontsize=8)
