@@ -40,7 +40,7 @@ STAGE_STYLE = {                   # Okabe & Ito 2008 colours, one marker per sta
 }
 STATUS_MARKERS = {st.DUPLICATE_ID: "x", st.INVALID_VALUE: "1", st.MISSING_INPUTS: "+",
                   st.OUT_OF_MODEL_RANGE: "4", st.NOT_ANOMALOUS_ROTATOR: "."}
-TRACK_MASSES_MSUN = (0.9, 1.0, 1.2, 1.4, 1.6, 2.0, 2.5)
+TRACK_MASSES_MSUN = (0.7, 0.8, 1.0, 1.2, 1.4, 1.6, 2.0, 2.5)
 SIZE_MIN_PT2, SIZE_MAX_PT2 = 10.0, 140.0   # marker areas of the smallest and largest priority
 LOG_PRIORITY_FLOOR = -6.0                  # colour scale floor (log10 detections per hour)
 FAINT_ALPHA = 0.35
@@ -194,7 +194,8 @@ def _draw_tracks(ax, tracks: pd.DataFrame, y_column: str):
         zams = one.iloc[0]
         ax.annotate(f"{mass:g} M$_\\odot$", (zams["teff_k"], zams[y_column]), xytext=(-5, 0),
                     textcoords="offset points", fontsize=8, color="0.2", ha="right", va="center",
-                    zorder=6, bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.8})
+                    zorder=6, annotation_clip=True, clip_on=True,
+                    bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.8})
     handles.append(Line2D([], [], color="0.55", lw=0.9))
     labels.append("tracks (initial mass, M$_\\odot$)")
     for name, eep in BOUNDARY_EEPS.items():
@@ -221,7 +222,7 @@ def _teff_axis(ax, teff_values):
     finite = finite[np.isfinite(finite)]
     lo, hi = (np.nanmin(finite), np.nanmax(finite)) if finite.size else (3500.0, 7000.0)
     ax.set_xscale("log")
-    ax.set_xlim(hi * 1.04, lo / 1.04)
+    ax.set_xlim(hi * 1.2, lo / 1.04)   # room for the mass labels left of the ZAMS
     ticks = [t for t in (3000, 3500, 4000, 4500, 5000, 5500, 6000, 7000, 8000, 9000, 10000, 12000)
              if lo / 1.04 <= t <= hi * 1.04]
     ax.xaxis.set_major_locator(FixedLocator(ticks))
@@ -268,8 +269,8 @@ def kiel_diagram(table: pd.DataFrame, tracks: pd.DataFrame, feh: float, title: s
         h2, l2, unplaced, top = _stars_on(ax, fig, table, x, y)
         _teff_axis(ax, np.concatenate([x, tracks["teff_k"].to_numpy()]))
         finite = np.concatenate([y[np.isfinite(y)], tracks["logg"].dropna().to_numpy()])
-        ax.set_ylim(min(finite.max() + 0.15, 5.2), max(finite.min() - 0.15, 0.0))   # log g down
-        ax.set_ylabel("log$_{10}$ g (cgs), from the adopted mass and radius")
+        ax.set_ylim(min(finite.max() + 0.15, 5.2), max(finite.min() - 0.15, -0.5))   # log g down
+        ax.set_ylabel("log$_{10}$ g (cgs)")
         ax.set_title(title or f"Kiel diagram; tracks at [Fe/H] = {feh:+.2f}")
         _size_legend(ax, top, "upper left")
         _finish_legend(ax, fig, handles + h2, labels + l2, unplaced, "Teff, mass and radius")
@@ -508,7 +509,7 @@ def detectability_hr(points: pd.DataFrame, outline, z_threshold: float, min_life
                     ax.add_collection(LineCollection(segs[good & old], colors="0.5", linewidths=1.0,
                                                      linestyles=":", zorder=2))
                 ax.annotate(f"{mass:g}", xy[0], xytext=(-4, 0), textcoords="offset points",
-                            fontsize=8, color="0.2", ha="right", va="center")
+                            fontsize=8, color="0.2", ha="right", va="center", clip_on=True)
             for k, line in enumerate(outline):
                 ax.plot(line[:, 0], line[:, 1], color="black", lw=1.4, zorder=3, gid=f"favourable:{k}")
                 ax.plot(line[:, 0], line[:, 1], color="white", lw=0.5, zorder=3.1)
@@ -619,6 +620,6 @@ def season_visibility(season: pd.DataFrame, months: list, dark_hours: dict | Non
         ax.set_yticks(range(len(labels)), labels)
         if dark_hours:
             ax.axhline(0.5, color="white", lw=2)
-        fig.colorbar(image, ax=ax, label="hours at the air-mass limit, in dark time")
+        fig.colorbar(image, ax=ax, label="dark hours within the air-mass limit")
         ax.set_title(title)
     return fig
