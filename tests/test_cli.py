@@ -63,6 +63,11 @@ def test_demo_runs_on_the_bundled_samples(tmp_path):
     assert result.exit_code == 0, result.output
     assert (tmp_path / "cluster_members_ranked.csv").exists()
     assert (tmp_path / "field_stars_ranked.csv").exists()
+    for name in ("cluster_members", "field_stars"):
+        report = tmp_path / f"{name}_ranked_report.html"
+        assert report.exists() and str(report) in result.output
+        assert (tmp_path / f"{name}_ranked_report_figures" / "hr_diagram.png").exists()
+    assert (tmp_path / "cluster_members_ranked_report_figures" / "colour_magnitude.svg").exists()
 
 
 def test_rank_with_several_planets_a_reference_and_the_rapid_filter(catalog, tmp_path):

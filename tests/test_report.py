@@ -270,3 +270,51 @@ def test_escaping_of_table_text(ranked):
     report.figures = {}
     html = render_html(report, {})
     assert "<b>Valtra" not in html and "&lt;b&gt;Valtra&amp;5" in html
+
+
+def test_map_figure_explains_every_mark():
+    """The detectability map (``prioritize map``): legend entries for the phase lines, the
+    bump, the favourable outline, the threshold contours, the grey cells and the
+    hatching; the caution not in the title; no cyan; text >= 8 pt; a readable size."""
+    from matplotlib.colors import to_rgba
+    from matplotlib.text import Text
+
+    from prioritize.detectability import cluster_window, default_map_eeps, detectability_map
+    from prioritize.report.figures import detectability_figure
+    from prioritize import CAUTION
+
+    grid, cfg = load_grid(), load_config()
+    table = detectability_map(grid, cfg, 0.0, [0.8, 0.9, 1.0, 1.2], default_map_eeps(20))
+    window = cluster_window(grid, cfg, 4.0, 0.0, 800.0, 0.05)
+    fig = detectability_figure(table, 3.0, 1.0, window, "test map")
+    legend_text = " ".join(t.get_text() for leg in fig.legends for t in leg.get_texts())
+    for words in ("turn-off, subgiant branch, giant branch", "RGB bump", "favourable region",
+                  "threshold contour", "no signature computed", "hatched: older than the Universe",
+                  "isochrone"):
+        assert words in legend_text
+    assert CAUTION not in fig._suptitle.get_text()
+    assert any(CAUTION in leg.get_title().get_text() for leg in fig.legends)
+    cyan = to_rgba("cyan")
+    for artist in fig.findobj(lambda a: hasattr(a, "get_edgecolor")):
+        colours = np.atleast_2d(artist.get_edgecolor())
+        assert not any(np.allclose(c, cyan) for c in colours if len(c) == 4)
+    for text in fig.findobj(Text):
+        if text.get_text().strip() and text.get_visible():
+            assert text.get_fontsize() >= plots.MIN_FONT_PT, text.get_text()
+    width, height = fig.get_size_inches()
+    assert width <= 11.0 and width / height < 1.5            # no 2046 x 616 px strip
+
+
+def test_rank_report_writes_the_report(tmp_path):
+    catalog = tmp_path / "few.csv"
+    pd.read_csv(ROOT / "sample_catalogs" / "field_stars.csv").head(60).to_csv(catalog, index=False)
+    out = tmp_path / "ranked.csv"
+    result = CliRunner().invoke(app, ["rank", str(catalog), "-o", str(out), "--report"])
+    assert result.exit_code == 0, result.output
+    html = tmp_path / "ranked_report.html"
+    assert html.exists() and str(html) in result.output
+    keys = _parse(html.read_text(encoding="utf-8")).keys
+    table = pd.read_csv(out)
+    assert int(keys["rows"]) == len(table) == 60
+    assert int(keys["status.ok"]) == int((table["status"] == "ok").sum())
+    assert "no metadata found" not in html.read_text(encoding="utf-8")   # assumptions from the run itself

@@ -526,7 +526,7 @@ def detectability_hr(points: pd.DataFrame, outline, z_threshold: float, min_life
                    Line2D([], [], color="0.5", lw=1.0, ls=":")]
         labels = [f"favourable region (outline from a 0.1 M$_\\odot$ grid): z ≥ {z_threshold:g} σ and "
                   f"lifetime ≥ {min_lifetime_myr:g} Myr",
-                  "track with no signature there (grey; z or lifetime undefined)",
+                  "grey: top, z not computed there; bottom, no signature there (z below the threshold)",
                   "older than the Universe (13.8 Gyr): never favourable",]
         fig.legend(handles, labels, loc="outside lower center", ncols=1, frameon=False,
                    title="numbers at the left end of each track: initial mass (M$_\\odot$)")
