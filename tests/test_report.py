@@ -49,14 +49,17 @@ def written(ranked, tmp_path_factory):
     table, meta = ranked
     # invented night plan (slots only, no site: drawn from the air masses) and season table
     order = table[table["rank"].notna()].head(3)
-    plan = pd.DataFrame({"star_id": list(order["star_id"]) + ["X"],
+    plan = pd.DataFrame({"night": ["2027-03-15"] * 3 + [""], "star_id": list(order["star_id"]) + ["X"],
                          "start_utc": ["2027-03-16T06:00:00", "2027-03-16T06:30:00", "2027-03-16T07:00:00", ""],
                          "end_utc": ["2027-03-16T06:20:00", "2027-03-16T06:50:00", "2027-03-16T07:20:00", ""],
                          "airmass_start": [1.1, 1.2, 1.5, np.nan], "airmass_end": [1.15, 1.3, 1.7, np.nan]})
     season = pd.DataFrame({"star_id": list(order["star_id"]), "2027-02_hours": [10.0, 0.0, 3.5],
                            "2027-03_hours": [20.0, 5.0, 1.0], "total_hours": [30.0, 5.0, 4.5],
                            "reason": ["ok"] * 3})
-    report = build_report(table, meta, "cluster_members_ranked.csv", night=(plan, {"date": "2027-03-15"}),
+    second = plan.iloc[:1].assign(night="2027-03-16", start_utc="2027-03-17T06:00:00",
+                                  end_utc="2027-03-17T06:20:00")
+    report = build_report(table, meta, "cluster_members_ranked.csv",
+                          night=(pd.concat([plan, second], ignore_index=True), {}),
                           season=(season, {"dark_hours": {"2027-02": 100.0, "2027-03": 90.0}}))
     out = tmp_path_factory.mktemp("report") / "report.html"
     paths = write_report(report, out)
@@ -241,6 +244,8 @@ def test_significance_budget_night_season(ranked, written):
     night = report.figures["night"][0]
     slot = _gid(night, f"slot:{plan['star_id'][0]}")
     assert slot.get_ydata()[0] == pytest.approx(90 - np.degrees(np.arccos(1 / 1.1)))
+    assert len(night.findobj(lambda a: str(a.get_gid()).startswith("slot:"))) == 3   # first night only
+    assert "2027-03-15" in night.axes[0].get_title()
     heat = report.figures["season"][0].axes[0].images[0].get_array()
     np.testing.assert_allclose(heat[0], [100.0, 90.0])        # dark time first
     np.testing.assert_allclose(heat[1:], season[["2027-02_hours", "2027-03_hours"]].to_numpy())

@@ -13,7 +13,7 @@ a template keeps the page's structure readable and escapes every value from the
 table (star names, notes), which string concatenation would not.
 
 Night plan columns used: ``star_id``, ``start_utc``, ``end_utc`` (ISO UTC; empty
-for targets not planned) and, when the altitude curves cannot be computed,
+for targets not planned), ``night`` if present (only the first night is drawn) and, when the altitude curves cannot be computed,
 ``airmass_start``/``airmass_end``; the curves need the plan's metadata ``site`` and
 the targets' ``ra_deg``/``dec_deg`` from the ranked table.  Season table columns
 used: ``star_id``, every ``<YYYY-MM>_hours`` and, when present, ``reason`` and the
@@ -388,6 +388,19 @@ def _night_curves(plan: pd.DataFrame, plan_meta: dict, ranked: pd.DataFrame):
             "sun": get_sun(t).transform_to(flat).alt.deg, "site": site.name}
 
 
+def first_night(plan: pd.DataFrame, plan_meta: dict) -> tuple[pd.DataFrame, str]:
+    """The rows of the plan's first night and its date: a plan of several nights has a
+    ``night`` column (local evening date); a one-night plan gives its date in the
+    metadata (``date`` or ``nights``)."""
+    nights = plan["night"].dropna().astype(str).str.strip() if "night" in plan.columns else pd.Series([], dtype=str)
+    nights = nights[nights != ""]
+    if not nights.empty:
+        first = sorted(nights.unique())[0]
+        return plan[plan["night"].astype(str).str.strip() == first], first
+    listed = plan_meta.get("nights")
+    return plan, str(plan_meta.get("date") or (listed[0] if isinstance(listed, list) and listed else "?"))
+
+
 def season_months(season: pd.DataFrame) -> list[str]:
     """The months of a season table (columns ``<YYYY-MM>_hours``), in order."""
     return sorted(m.group(1) for c in season.columns if (m := MONTH_COLUMN.match(str(c))))
@@ -478,12 +491,13 @@ def build_report(ranked: pd.DataFrame, meta: dict | None = None, source: str = "
             if column not in plan.columns:
                 raise CatalogError(f"missing column {column}: a night plan from `prioritize night` is "
                                    "expected", path="--night")
+        plan, date = first_night(plan, plan_meta or {})
         curves = _night_curves(plan, plan_meta or {}, ranked)
         site = (plan_meta or {}).get("site", "")
-        title = f"Night of {(plan_meta or {}).get('date', '?')}" + (f" at {site}" if site else "")
+        title = f"Night of {date}" + (f" at {site}" if site else "")
         report.figures["night"] = (plots.night_altitude(plan, curves, title), (
             "Altitude of the planned targets through the night (thin) and their observing slots (thick), "
-            "from the night plan; planning estimate."))
+            "from the night plan (its first night); planning estimate."))
         if curves is None:
             report.notes.append("night chart: site or coordinates unknown, slots drawn from the plan's "
                                 "air masses only")
