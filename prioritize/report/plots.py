@@ -150,18 +150,22 @@ def track_points(grid, z: float, masses=TRACK_MASSES_MSUN, eeps=None) -> pd.Data
     """Track points for the diagrams: Teff, log L, log g and stage per (mass, EEP).
 
     EEPs 0-579 (main sequence to the end of core He burning); masses outside the
-    grid are dropped.  Columns ``initial_mass_msun, eep, teff_k, logl_lsun, logg,
+    grid are dropped; points older than the Universe (13.8 Gyr) are NaN (not drawn).  Columns ``initial_mass_msun, eep, teff_k, logl_lsun, logg,
     stage``; the RGB bump of each track in ``attrs["bump"]`` (mass -> (Teff, log L,
     log g), NaN where a track has none).
     """
     from ..stars import evolution
+    from ..stars.placement import MAX_AGE_MYR
     from ..stars.tracks import N_EEPS, PHASE_EEPS
 
     masses = np.array([m for m in masses if grid.masses.min() <= m <= grid.masses.max()], float)
     eeps = np.arange(N_EEPS, dtype=float) if eeps is None else np.asarray(eeps, float)
     mass, eep = (a.ravel() for a in np.meshgrid(masses, eeps, indexing="ij"))
     zz = np.full(mass.size, z)
-    cols = grid.interpolate(mass, zz, eep, columns=["logteff", "logl", "logg"])
+    cols = grid.interpolate(mass, zz, eep, columns=["logteff", "logl", "logg", "age_myr"])
+    too_old = ~(cols["age_myr"] <= MAX_AGE_MYR)       # older than the Universe (or no model): not drawn
+    for name in ("logteff", "logl", "logg"):
+        cols[name] = np.where(too_old, np.nan, cols[name])
     bump_eep, bump_logl = evolution.rgb_bump(grid, masses, np.full(masses.size, z))
     bump_by_mass = dict(zip(masses, bump_logl))
     stage = evolution.stage_names(evolution.stage_index(
@@ -169,9 +173,10 @@ def track_points(grid, z: float, masses=TRACK_MASSES_MSUN, eeps=None) -> pd.Data
     table = pd.DataFrame({"initial_mass_msun": mass, "eep": eep, "teff_k": 10 ** cols["logteff"],
                           "logl_lsun": cols["logl"], "logg": cols["logg"], "stage": stage})
     at = grid.interpolate(masses, np.full(masses.size, z), np.nan_to_num(bump_eep),
-                          columns=["logteff", "logl", "logg"])
-    table.attrs["bump"] = {m: ((10 ** t, l, g) if np.isfinite(e) else (np.nan,) * 3)
-                           for m, e, t, l, g in zip(masses, bump_eep, at["logteff"], at["logl"], at["logg"])}
+                          columns=["logteff", "logl", "logg", "age_myr"])
+    table.attrs["bump"] = {m: ((10 ** t, l, g) if np.isfinite(e) and a <= MAX_AGE_MYR else (np.nan,) * 3)
+                           for m, e, t, l, g, a in zip(masses, bump_eep, at["logteff"], at["logl"], at["logg"],
+                                                       at["age_myr"])}
     return table
 
 
@@ -191,13 +196,15 @@ def _draw_tracks(ax, tracks: pd.DataFrame, y_column: str):
     for mass, one in tracks.groupby("initial_mass_msun"):
         for part in (one[one["eep"] < 480], one[one["eep"] >= 480]):
             ax.plot(part["teff_k"], part[y_column], color="0.55", lw=0.9, zorder=1, gid=f"track:{mass:g}")
+        if one["teff_k"].isna().all():
+            continue
         zams = one.iloc[0]
         ax.annotate(f"{mass:g} M$_\\odot$", (zams["teff_k"], zams[y_column]), xytext=(-5, 0),
                     textcoords="offset points", fontsize=8, color="0.2", ha="right", va="center",
                     zorder=6, annotation_clip=True, clip_on=True,
                     bbox={"boxstyle": "round,pad=0.1", "fc": "white", "ec": "none", "alpha": 0.8})
     handles.append(Line2D([], [], color="0.55", lw=0.9))
-    labels.append("tracks (initial mass, M$_\\odot$)")
+    labels.append("tracks (initial mass, M$_\\odot$), up to an age of 13.8 Gyr")
     for name, eep in BOUNDARY_EEPS.items():
         pts = tracks[np.isclose(tracks["eep"], eep)]
         ax.plot(pts["teff_k"], pts[y_column], ls="", marker=_BOUNDARY_MARKERS[name], color="black",
