@@ -19,6 +19,7 @@ import pandas as pd
 
 from . import engulfment, exposure, rotation, score, spectra, track_tables
 from .catalog import status as st
+from .catalog import validate
 from .config import Config, with_overrides
 from .errors import PrioritizeError
 from .lithium import baseline, lifetime
@@ -786,6 +787,12 @@ def _run_batch(df, cfg, grid, rng, reference):
     ages = np.full((n, s), np.nan)
     if "age_samples_myr" in res:
         ages[idx] = res["age_samples_myr"]
+    # values no star can have mean the inputs are wrong: a status, not a note
+    period = _column(df, "prot_d")
+    validate.apply_rules(validate.RESULT_RULES, {
+        "veq_from_period_kms": 2.0 * np.pi * out["radius_rsun"].to_numpy(float) * R_SUN_CM / 1e5
+        / (np.where(period > 0, period, np.nan) * 86400.0),
+        "age_gyr": out["age_gyr"].to_numpy(float)}, status, note)
     _rotation_columns(out, df, params, ages, cfg, _scatter(n, idx, res.get("t_ms_myr"), float))
     _observing_columns(out, df, model_logg, cfg, params["ebv_used"].to_numpy(float))
     out["p_engulfed"] = score.engulfed_posterior(out["p_engulfed_history"],

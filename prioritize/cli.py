@@ -1,8 +1,10 @@
 """Command-line front end: one thin function per command.
 
 Heavy imports (pandas, astropy, scipy) happen inside the commands so that
-``prioritize --help`` starts quickly.  Package errors become one line on stderr and
-exit code 2; nothing a user can cause ends in a traceback.
+``prioritize --help`` starts quickly.  Every run goes through one handler
+(:func:`prioritize.console.run_guarded`): exit code 0 ok, 1 a user mistake (one line
+naming what to fix), 2 an internal error (one line asking for a report; the
+traceback only with ``--debug``).
 """
 
 from __future__ import annotations
@@ -14,18 +16,39 @@ from pathlib import Path
 from typing import Optional
 
 import typer
+import typer.core
 
 from . import CAUTION, __version__
-from .console import friendly
+from .console import DEBUG, friendly, run_guarded
 from .errors import PrioritizeError
 from .map_command import map_command
 from .report.command import report_command
 from .sky.commands import night_command, season_command
 
+class _GuardedGroup(typer.core.TyperGroup):
+    """The application's command group: every run ends in an exit code of
+    :func:`prioritize.console.run_guarded` (callers asking for non-standalone mode get
+    click's own behaviour)."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode, **extra)
+        sys.exit(run_guarded(lambda: super(_GuardedGroup, self).main(
+            args, prog_name, complete_var, False, **extra)))
+
+
 app = typer.Typer(
-    add_completion=False, no_args_is_help=True, rich_markup_mode=None,
+    cls=_GuardedGroup, add_completion=False, no_args_is_help=True, rich_markup_mode=None,
     help="Rank planet-engulfment candidates for lithium follow-up.\n\n"
          "Example: prioritize rank candidates.csv -o ranked.parquet\n\n" + CAUTION)
+
+
+
+@app.callback()
+def _global_options(debug: bool = typer.Option(
+        False, "--debug", help="On an internal error, print the full traceback (for a bug report).")):
+    DEBUG["on"] = debug
+
 
 SAMPLE_DIR = Path(__file__).resolve().parents[1] / "sample_catalogs"
 

@@ -21,6 +21,7 @@ from concurrent.futures import ProcessPoolExecutor
 import pandas as pd
 
 from . import score
+from .catalog import status as st
 from .chain import deepest_envelope_table, run_batch
 from .config import Config
 from .errors import PrioritizeError
@@ -74,7 +75,35 @@ def _init_worker(cfg, grid, reference):
 def _run_in_worker(task):
     start, chunk = task
     w = _WORKER
-    return run_batch(chunk, w["cfg"], w["grid"], None, w["reference"], first_row=start)
+    return contained_batch(chunk, w["cfg"], w["grid"], w["reference"], first_row=start)
+
+
+def contained_batch(df: pd.DataFrame, cfg: Config, grid: TrackGrid, reference=None,
+                    first_row: int = 0) -> pd.DataFrame:
+    """:func:`~prioritize.chain.run_batch`, with a failure kept to the rows that cause it.
+
+    When the chain raises on a batch (anything but a package error, which concerns the
+    whole run), the batch is split in halves and each half run again, down to single
+    rows; a row that still fails is written with status ``computation_failed`` and the
+    exception's message in its note, its inputs passed through, and the run goes on.
+    Each row keeps its own placement draws (``first_row``), so the other rows' numbers
+    do not change, except that cluster rotation sequences are then fitted per part."""
+    try:
+        return run_batch(df, cfg, grid, None, reference, first_row=first_row)
+    except PrioritizeError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - confined to the failing rows below
+        if len(df) <= 1:
+            failed = df.copy()
+            failed["status"] = st.COMPUTATION_FAILED
+            message = " ".join(f"{type(exc).__name__}: {exc}".split())[:300]
+            failed["note"] = (f"computation failed ({message}); this is a fault of the tool, "
+                              "please report it with this row")
+            return run_batch(failed, cfg, grid, None, reference, first_row=first_row)
+        half = len(df) // 2
+        return pd.concat([contained_batch(df.iloc[:half], cfg, grid, reference, first_row),
+                          contained_batch(df.iloc[half:], cfg, grid, reference, first_row + half)],
+                         ignore_index=True)
 
 
 def _batches(df: pd.DataFrame, size: int):
@@ -95,7 +124,7 @@ def map_batches(df: pd.DataFrame, cfg: Config, grid: TrackGrid, reference=None, 
     done = 0
     if workers == 1:
         for start, chunk in _batches(df, size):
-            out = run_batch(chunk, cfg, grid, None, reference, first_row=start)
+            out = contained_batch(chunk, cfg, grid, reference, first_row=start)
             done += len(chunk)
             if progress is not None:
                 progress(done, total)
@@ -144,6 +173,6 @@ def rank_row(df: pd.DataFrame, cfg: Config, star_index: int, grid: TrackGrid | N
     ranking; ``rank`` is NaN (the rank number needs the whole catalog)."""
     size = cfg.run.batch_size
     start = (star_index // size) * size
-    out = run_batch(df.iloc[start:start + size], cfg, grid or configured_grid(cfg), None,
-                    load_baseline_reference(cfg), first_row=start)
+    out = contained_batch(df.iloc[start:start + size], cfg, grid or configured_grid(cfg),
+                          load_baseline_reference(cfg), first_row=start)
     return out.iloc[star_index - start]

@@ -34,11 +34,11 @@ def test_rank_columns_option_and_bad_config(catalog, tmp_path):
     bad = tmp_path / "bad.toml"
     bad.write_text("[planet]\nmass_jup = 2\n")
     result = runner.invoke(app, ["rank", str(catalog), "-c", str(bad), "-o", str(tmp_path / "x.csv")])
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     assert "unknown key planet.mass_jup" in result.output
     result = runner.invoke(app, ["rank", str(catalog), "--columns", "nonsense", "-o",
                                  str(tmp_path / "x.csv")])
-    assert result.exit_code == 2 and "error:" in result.output
+    assert result.exit_code == 1 and "error:" in result.output
 
 
 def test_explain_shows_the_chain_and_unknown_star_is_one_line(catalog):
@@ -47,7 +47,7 @@ def test_explain_shows_the_chain_and_unknown_star_is_one_line(catalog):
     for word in ("Placement on tracks", "Enrichment", "Lifetime", "Priority", "Caution"):
         assert word in result.output
     result = runner.invoke(app, ["explain", str(catalog), "Z"])
-    assert result.exit_code == 2 and "not in" in result.output
+    assert result.exit_code == 1 and "not in" in result.output
     assert "Traceback" not in result.output
 
 
@@ -83,7 +83,7 @@ def test_rank_with_several_planets_a_reference_and_the_rapid_filter(catalog, tmp
     # no rotation data at all: every computed star is left out by the filter, with its status
     assert set(table["status"]) <= {"not_anomalous_rotator", "invalid_value"}
     result = runner.invoke(app, ["rank", str(catalog), "--planet-mass", "one", "-o", str(out)])
-    assert result.exit_code == 2 and "--planet-mass takes numbers" in result.output
+    assert result.exit_code == 1 and "--planet-mass takes numbers" in result.output
 
 
 def test_night_plan_from_a_ranked_table(catalog, tmp_path):

@@ -220,12 +220,12 @@ def test_map_command_writes_table_figure_and_summary(tmp_path):
 def test_map_command_bad_metallicity_is_one_line(tmp_path):
     out = tmp_path / "map.csv"
     result = CliRunner().invoke(_app(), ["map", "--feh", "0.5", *COARSE_OPTIONS, "-o", str(out)])
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     lines = result.output.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error:") and "-0.82 to +0.18" in lines[0]
     assert not out.exists()
     result = CliRunner().invoke(_app(), ["map", "--cluster-age", "2", *COARSE_OPTIONS, "-o", str(out)])
-    assert result.exit_code == 2 and "--distance" in result.output
+    assert result.exit_code == 1 and "--distance" in result.output
     assert len(result.output.strip().splitlines()) == 1
 
 

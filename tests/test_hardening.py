@@ -53,7 +53,7 @@ def test_explain_of_a_rejected_row_shows_why(tmp_path):
 @pytest.mark.parametrize("options", [["--planet-mass", "nan"], ["--planet-mass", "1,nan"]])
 def test_nan_planet_mass_is_one_line(tmp_path, options):
     result, _ = _rank(tmp_path, "good," + GOOD, *options)
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     assert "Traceback" not in result.output and "nan" in result.output
 
 
@@ -61,7 +61,7 @@ def test_nan_in_the_config_is_one_line(tmp_path):
     cfg = tmp_path / "c.toml"
     cfg.write_text("[planet]\nmass_mjup = nan\n")
     result, _ = _rank(tmp_path, "good," + GOOD, "--config", str(cfg))
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     assert "planet.mass_mjup" in result.output
 
 
@@ -96,10 +96,10 @@ def test_output_onto_the_input_is_refused_before_any_work(tmp_path):
     src.write_text(HEADER + "good," + GOOD)
     before = src.read_text()
     result = runner.invoke(app, ["rank", str(src), "-o", str(src)])
-    assert result.exit_code == 2 and "input catalog" in result.output
+    assert result.exit_code == 1 and "input catalog" in result.output
     assert src.read_text() == before
     missing = runner.invoke(app, ["rank", str(src), "-o", str(tmp_path / "no" / "out.csv")])
-    assert missing.exit_code == 2 and "does not exist" in missing.output
+    assert missing.exit_code == 1 and "does not exist" in missing.output
 
 
 def test_default_output_names_keep_dotted_stems_apart(tmp_path, monkeypatch):
@@ -174,6 +174,6 @@ def test_a_truncated_fits_catalog_is_called_truncated(tmp_path):
     cut = tmp_path / "cut.fits"
     cut.write_bytes(whole.read_bytes()[:4000])        # inside the table's header/data blocks
     result = runner.invoke(app, ["check", str(cut)])
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     assert "truncated" in result.output and "cut.fits" in result.output
     assert runner.invoke(app, ["check", str(whole)]).exit_code == 0

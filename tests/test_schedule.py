@@ -299,6 +299,6 @@ def test_night_command_one_line_errors(tmp_path, small_table):
              (["--site", "mauna-kea", "--date", "2150-03-15", "--priority-column", "score"], "2099-12-31")]
     for args, words in cases:
         result = CliRunner().invoke(_app(), ["night", str(path), *args])
-        assert result.exit_code == 2, result.output
+        assert result.exit_code == 1, result.output
         lines = result.stderr.strip().splitlines()
         assert len(lines) == 1 and lines[0].startswith("error:") and words in lines[0]

@@ -387,6 +387,6 @@ def test_season_command_one_line_errors(tmp_path):
                         (["--site", "paranal", "--semester", "2027Q"], "2027A"),
                         (["--site", "paranal", "--start", "2027-13-01", "--end", "2027-12-02"], "--start")]:
         result = CliRunner().invoke(_app(), ["season", str(source), *args])
-        assert result.exit_code == 2
+        assert result.exit_code == 1
         lines = result.stderr.strip().splitlines()
         assert len(lines) == 1 and lines[0].startswith("error:") and words in lines[0]

@@ -13,8 +13,10 @@ INVALID_VALUE = "invalid_value"          # non-numeric text or an impossible val
 MISSING_INPUTS = "missing_inputs"        # not enough columns to place the star on tracks
 OUT_OF_MODEL_RANGE = "out_of_model_range"  # mass / metallicity / position the track grid cannot explain
 NOT_ANOMALOUS_ROTATOR = "not_anomalous_rotator"  # left out by the rapid-rotator filter
+COMPUTATION_FAILED = "computation_failed"  # the chain failed on this row; the note has the message
 
-ALL = (OK, DUPLICATE_ID, INVALID_VALUE, MISSING_INPUTS, OUT_OF_MODEL_RANGE, NOT_ANOMALOUS_ROTATOR)
+ALL = (OK, DUPLICATE_ID, INVALID_VALUE, MISSING_INPUTS, OUT_OF_MODEL_RANGE, NOT_ANOMALOUS_ROTATOR,
+       COMPUTATION_FAILED)
 
 DESCRIPTIONS = {
     OK: "computed",
@@ -23,6 +25,8 @@ DESCRIPTIONS = {
     MISSING_INPUTS: "not enough inputs to place the star on stellar tracks",
     OUT_OF_MODEL_RANGE: "outside the range of the stellar track grid",
     NOT_ANOMALOUS_ROTATOR: "computed, but left out by --rapid-only: rotation not anomalous or unknown",
+    COMPUTATION_FAILED: "the computation failed for this row (a fault of the tool; the note has "
+                        "the message: please report it); the other rows are unaffected",
 }
 
 # The trade's evolutionary stages, in order along a track.

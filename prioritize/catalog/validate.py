@@ -14,6 +14,7 @@ are vectorised over the table.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -42,6 +43,73 @@ MEMBER_INHERITS = (("distance_pc", "cluster_distance_pc"), ("ebv", "cluster_ebv"
 MAX_LISTED_ROWS = 1000          # check_report lists at most this many rows per section
 NOT_COMPUTED = "not computed"   # check_report: rows whose status is not ok
 NEEDS_TEXT = "needs mass+stage, or a colour/Teff with parallax/logL/logg"
+
+SPEED_OF_LIGHT_KMS = 299_792.458      # exact (SI definition of the metre)
+UNIVERSE_AGE_GYR = 13.8                # Planck Collaboration 2020, A&A 641, A6: 13.787 +- 0.020 Gyr
+
+
+@dataclass(frozen=True)
+class ValueRule:
+    """One value-range rule: values of ``column`` outside [``lo``, ``hi``] get ``status``
+    (None = a note only) and ``message`` (formatted with ``column`` and ``value``)."""
+
+    column: str
+    lo: float
+    hi: float
+    status: str | None
+    message: str
+
+    def broken(self, values: np.ndarray) -> np.ndarray:
+        with np.errstate(invalid="ignore"):
+            return np.isfinite(values) & ((values < self.lo) | (values > self.hi))
+
+
+# The rules beyond each column's allowed range (``columns.INPUT_COLUMNS``, applied by
+# ``validate_catalog`` with status invalid_value).  INPUT_RULES are applied to the
+# catalog before any physics (``check`` and ``rank`` alike); RESULT_RULES to what the
+# chain derives, where a value no star can have means the inputs are wrong.
+INPUT_RULES = (
+    ValueRule("vsini_kms", 0.0, 0.1 * SPEED_OF_LIGHT_KMS, status.INVALID_VALUE,
+              "{column} = {value:.4g} km/s is above 0.1 c, impossible for a star (check the unit: km/s)"),
+    *(ValueRule(f"{name}_err", math.ulp(0.0), math.inf, None,
+                "{column} = 0: a zero uncertainty is not a measurement error (give the measured "
+                "error, or leave it empty for the default)")
+      for name in ("teff_k", "logg", "feh", "logl_lsun", "mass_msun", "parallax_mas", "prot_d",
+                   "vsini_kms", "a_li", "g_mag", "bp_rp", "v_mag", "b_v", "ebv")),
+)
+RESULT_RULES = (
+    ValueRule("veq_from_period_kms", 0.0, 0.1 * SPEED_OF_LIGHT_KMS, status.INVALID_VALUE,
+              "prot_d with the star's radius gives v_eq = {value:.3g} km/s, above 0.1 c: no star "
+              "rotates that fast (check the period's unit: days)"),
+    ValueRule("age_gyr", 0.0, UNIVERSE_AGE_GYR, status.OUT_OF_MODEL_RANGE,
+              "placed at an age of {value:.3g} Gyr, older than the Universe (13.8 Gyr)"),
+)
+
+
+def apply_rules(rules, values: dict, codes: np.ndarray, notes: np.ndarray) -> np.ndarray:
+    """Apply ``rules`` to ``values`` (column -> array; absent columns are skipped):
+    broken rows get the rule's status where they are still ok, and its message added to
+    the note.  ``codes`` and ``notes`` (object arrays) are changed in place; returns
+    the mask of rows whose status changed."""
+    changed = np.zeros(len(codes), bool)
+    for rule in rules:
+        if rule.column not in values:
+            continue
+        data = np.asarray(values[rule.column], dtype=float)
+        bad = rule.broken(data)
+        if not bad.any():
+            continue
+        rows = np.flatnonzero(bad)
+        if rule.status is not None:
+            fresh = rows[codes[rows] == status.OK]
+            codes[fresh] = rule.status
+            changed[fresh] = True
+        texts = np.array([rule.message.format(column=rule.column, value=v) for v in data[rows]],
+                         dtype=object)
+        current = notes[rows]
+        notes[rows] = np.where(current == "", texts, current + "; " + texts)
+    return changed
+
 
 # Text that means "no value" in a numeric column (compared lower-case, stripped).
 _MISSING_TEXT = frozenset({"", "nan", "na", "n/a", "null", "none", "--", "-", "?", "..."})
@@ -137,6 +205,7 @@ def validate_catalog(catalog: pd.DataFrame, path: str | None = None,
         elif name == "a_li_is_limit" and name in out.columns:
             out[name] = _check_limit_flag(out[name], notes)
 
+    apply_rules(INPUT_RULES, numbers, notes.status, notes.note)
     have = _Available(out, context)
     routes = placement_routes(have.table, have.params)
     nothing = routes == ROUTE_NONE
