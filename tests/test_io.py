@@ -75,7 +75,11 @@ def test_every_writer_round_trips_with_metadata(tmp_path, ext):
 def test_csv_metadata_goes_to_a_json_sidecar(tmp_path):
     path = write_table(_sample(), tmp_path / "ranked.csv", {"tool": "prioritize"})
     sidecar = tmp_path / "ranked.csv.meta.json"
-    assert json.loads(sidecar.read_text()) == {"tool": "prioritize"}
+    import hashlib
+    stored = json.loads(sidecar.read_text())
+    # the checksum ties the sidecar to this table (hashlib's SHA-256 of the file)
+    assert stored == {"tool": "prioritize", "table_sha256": hashlib.sha256(path.read_bytes()).hexdigest()}
+    assert read_table(path)[1] == {"tool": "prioritize"}
     with open(path, newline="", encoding="utf-8") as fh:
         assert next(csv.reader(fh))[0] == "star_id"          # no comment lines in the CSV
 

@@ -46,11 +46,12 @@ from prioritize.catalog.columns import (CONDITIONAL_SPELLINGS, IGNORED_SPELLINGS
                                         recognise, row_number_ids)
 from prioritize.catalog.formats import (_FORMAT_NAMES, ACCEPTED_FORMATS, catalog_stem,  # noqa: F401
                                         check_output_path, companion_path, table_format)
-from prioritize.errors import CatalogError, ConfigError
+from prioritize.errors import CatalogError, ConfigError, PrioritizeWarning
 
 METADATA_KEY = "prioritize_metadata"   # Parquet schema key / VOTable INFO name
 FITS_METADATA_KEYWORD = "PRMETA"       # FITS header keyword (long string, CONTINUE cards)
 SIDECAR_SUFFIX = ".meta.json"
+TABLE_CHECKSUM_KEY = "table_sha256"   # in a sidecar: the SHA-256 of the table it describes
 
 _TEXT_COLUMNS = frozenset([n for n, s in INPUT_COLUMNS.items() if s.dtype == TEXT]
                           + [n for n, s in OUTPUT_COLUMNS.items() if s.dtype == TEXT])
@@ -726,6 +727,9 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, metadata: dict | N
     Parquet schema metadata, the FITS header (keyword ``PRMETA``, JSON), the ECSV
     header or a VOTable INFO element; for CSV in a sidecar ``<path>.meta.json``.
     Text columns become fixed-width UTF-8 in FITS; missing text is written empty.
+    Control characters in text and column names are written as ``\\xNN``
+    (:func:`escape_control_characters`), so every file reads back through
+    :func:`read_table` (XML forbids them, a NUL ends a CSV field).
 
     Returns
     -------
@@ -742,22 +746,50 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike, metadata: dict | N
     if not path.parent.is_dir():
         raise CatalogError(f"cannot be written: folder {path.parent} does not exist", path=str(path))
     metadata = _plain_json(metadata or {})
+    table = escape_control_characters(table)
     writer = _WRITERS[fmt]
     try:
         sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
-        if fmt in ("csv", "tsv") and sidecar.exists():
-            sidecar.unlink()        # the previous run's provenance must not describe this table
         with atomic_target(path) as temporary:
             writer(table, temporary, metadata, path)
-        if fmt in ("csv", "tsv") and metadata:
-            sidecar = path.with_name(path.name + SIDECAR_SUFFIX)
-            with atomic_target(sidecar) as temporary:
-                temporary.write_text(json.dumps(metadata, indent=2, sort_keys=True), encoding="utf-8")
+            if fmt in ("csv", "tsv") and metadata:
+                # both files complete before either is renamed; the sidecar names the
+                # table's checksum, so a pair from two runs is recognised on reading
+                stored = {**metadata, TABLE_CHECKSUM_KEY: _sha256(temporary)}
+                with atomic_target(sidecar) as side:
+                    side.write_text(json.dumps(stored, indent=2, sort_keys=True), encoding="utf-8")
+        if fmt in ("csv", "tsv") and not metadata and sidecar.exists():
+            sidecar.unlink()        # the previous run's provenance must not describe this table
     except CatalogError:
         raise
     except (OSError, ValueError, TypeError) as exc:
         raise CatalogError(f"cannot be written as {_FORMAT_NAMES[fmt]}: {exc}", path=str(path)) from exc
     return path
+
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
+
+
+def _escaped(text: str) -> str:
+    return _CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", text)
+
+
+def escape_control_characters(table: pd.DataFrame) -> pd.DataFrame:
+    """The table with every control character (Unicode category Cc: U+0000-001F,
+    U+007F-009F) in its text cells and column names written as the four characters
+    ``\\xNN``; the same table (no copy) when there are none."""
+    renamed = {c: _escaped(c) for c in table.columns if isinstance(c, str) and _CONTROL.search(c)}
+    fixed = {}
+    for name in table.columns:
+        column = table[name]
+        if column.dtype == object or pd.api.types.is_string_dtype(column.dtype):
+            text = column.map(lambda v: v if not isinstance(v, str) else _escaped(v)
+                              if _CONTROL.search(v) else v, na_action="ignore")
+            if not text.equals(column):
+                fixed[name] = text
+    if not renamed and not fixed:
+        return table
+    return table.assign(**{str(k): v for k, v in fixed.items()}).rename(columns=renamed)
 
 
 def _plain_json(value):
@@ -928,6 +960,22 @@ def _read_sidecar(path: Path) -> dict:
     if not sidecar.exists():
         return {}
     try:
-        return json.loads(sidecar.read_text(encoding="utf-8"))
+        stored = json.loads(sidecar.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
         raise CatalogError(f"metadata sidecar is not readable JSON ({exc})", path=str(sidecar)) from exc
+    checksum = stored.pop(TABLE_CHECKSUM_KEY, None) if isinstance(stored, dict) else None
+    if checksum is not None and checksum != _sha256(path):
+        warnings.warn(f"{sidecar} describes another version of {path.name} (a run stopped between "
+                      "writing the two); its provenance is ignored", PrioritizeWarning, stacklevel=3)
+        return {}
+    return stored
+
+
+def _sha256(path: Path) -> str:
+    import hashlib
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
