@@ -384,11 +384,26 @@ def test_derive_nan_and_invalid_rows_get_notes():
     assert np.isnan(out.teff_k[[0, 2, 3]]).all() and np.isfinite(out.teff_k[1])
     assert out.teff_source[[0, 2, 3]].eq("none").all()
     assert np.isnan(out.logl_lsun).all() and out.logl_source.eq("none").all()
-    assert "colour outside C21 range" in out.deriv_note[0]
+    # the relation, its range (Casagrande et al. 2021, logg > 3.2: 0.20-2.00) and the colour used
+    assert "(BP-RP)0 = 3.50" in out.deriv_note[0] and "Casagrande et al. 2021" in out.deriv_note[0]
+    assert "0.20 to 2.00 mag" in out.deriv_note[0]
     assert "parallax ≤ 0" in out.deriv_note[1]
     assert "no colour given" in out.deriv_note[2]
     assert "ebv < 0" in out.deriv_note[3] and np.isnan(out.ebv_used[3])
     assert out.radius_source.eq("none").all()
+
+
+def test_hot_and_reddened_stars_are_told_which_relation_they_leave():
+    """A Teff above the G-band BC's range (Andrae et al. 2018: 3300-8000 K) and a colour
+    an E(B-V) of 10 dereddens below the Casagrande et al. 2021 range (0.20 mag) are
+    named with the relation and its range, not "give a Teff/colour"."""
+    df = pd.DataFrame({"teff_k": [20000.0, np.nan], "g_mag": [9.0, 12.0], "bp_rp": [0.0, 3.5],
+                       "parallax_mas": [5.0, 2.0], "ebv": [0.0, 10.0]})
+    out = ph.derive_stellar_parameters(df)
+    assert "Teff = 20000 K" in out.deriv_note[0] and "Andrae et al. 2018" in out.deriv_note[0]
+    assert "3300 to 8000 K" in out.deriv_note[0] and "logl_lsun" in out.deriv_note[0]
+    assert "E(B-V) = 10.00" in out.deriv_note[1] and "very large" in out.deriv_note[1]
+    assert "Casagrande et al. 2021" in out.deriv_note[1]
 
 
 def test_derive_empty_and_bad_tables():

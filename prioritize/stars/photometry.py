@@ -70,6 +70,7 @@ BC_G_COOL_COEFFS = (1.749, 1.977e-3, 3.737e-7, -8.966e-11, -4.183e-14)
 BC_G_HOT_COEFFS = (6.000e-2, 6.731e-5, -6.647e-8, 2.859e-11, -7.197e-15)
 BC_G_SPLIT_K = 4000.0
 BC_G_TEFF_RANGE = (3300.0, 8000.0)
+HEAVY_REDDENING_EBV = 3.0          # an E(B-V) above this is said to be unusual (common practice)
 # Torres 2010, Table 1: BC_V = sum c_i (log Teff)^i; pieces split at log Teff 3.70 and 3.90.
 BC_V_COEFFS = (
     (-0.190537291496456e5, 0.155144866764412e5, -0.421278819301717e4, 0.381476328422343e3),
@@ -976,6 +977,31 @@ def _relation_reason(colour_ok, feh_ok, name):
                      default=f"logg outside {name} range").astype(object)
 
 
+def _colour_reason(reason, rows, name, colour, observed, intrinsic, ebv, lo, hi, source):
+    """The generic "colour outside <name> range" made precise for the rows in ``rows``:
+    the observed and dereddened colour, the E(B-V) used, the relation and its range."""
+    reason = np.asarray(reason, dtype=object).copy()
+    hit = np.flatnonzero(rows & (reason == f"colour outside {name} range"))
+    lo, hi = np.broadcast_to(lo, reason.shape), np.broadcast_to(hi, reason.shape)
+    for i in hit:
+        heavy = (f"; E(B-V) = {ebv[i]:.2f} is very large: check the reddening"
+                 if ebv[i] > HEAVY_REDDENING_EBV else "")
+        reason[i] = (f"({colour})0 = {intrinsic[i]:.2f} ({colour} = {observed[i]:.2f} dereddened with "
+                     f"E(B-V) = {ebv[i]:.2f}) is outside the {source} colour-Teff range "
+                     f"{lo[i]:.2f} to {hi[i]:.2f} mag: give teff_k{heavy}")
+    return reason
+
+
+def _bc_reason(reason, rows, teff, teff_range, relation):
+    """The generic "no bolometric correction" made precise: which relation, its Teff range."""
+    reason = np.asarray(reason, dtype=object).copy()
+    hit = np.flatnonzero(rows & (reason == "no bolometric correction") & np.isfinite(teff))
+    for i in hit:
+        reason[i] = (f"Teff = {teff[i]:.0f} K is outside the range of {relation}, "
+                     f"{teff_range[0]:.0f} to {teff_range[1]:.0f} K: give logl_lsun (or logg)")
+    return reason
+
+
 def _excess_per_ebv(band_extinction, bp_rp0, ebv):
     """d(extinction)/dE(B-V) at fixed intrinsic colour, for error propagation."""
     return R_V_DEFAULT * _slope(band_extinction, (bp_rp0, R_V_DEFAULT * ebv), 1)
@@ -1140,6 +1166,14 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
                             ["catalog", "bp_rp_c21(logg=" + logg_label + ")", bv_source], "none").astype(object)
     no_teff = ~np.isfinite(teff)
     has_bp_rp, has_b_v = np.isfinite(x0), np.isfinite(b_v0)
+    c21_reason = _colour_reason(c21_reason, no_teff & has_bp_rp, "C21", "BP-RP", bp_rp, x0, ebv,
+                                C21_BP_RP_MIN, _c21_colour_max(logg_used), "Casagrande et al. 2021")
+    bv_lo = np.where(giant_bv, A99_B_V_BLUE_RANGE[0], C10_B_V_RANGE[0])
+    bv_hi = np.where(giant_bv, A99_B_V_RED_RANGE[1], C10_B_V_RANGE[1])
+    bv_reason = _colour_reason(_colour_reason(bv_reason, no_teff & has_b_v & ~giant_bv, "C10", "B-V", col["b_v"],
+                                              b_v0, ebv, bv_lo, bv_hi, "Casagrande et al. 2010, dwarfs"),
+                               no_teff & has_b_v & giant_bv, "A99", "B-V", col["b_v"], b_v0, ebv, bv_lo, bv_hi,
+                               "Alonso et al. 1999, giants")
     notes = _add_note(notes, no_teff & has_bp_rp, "no Teff: " + c21_reason)
     notes = _add_note(notes, no_teff & has_b_v & ~has_bp_rp, "no Teff: " + bv_reason)
     notes = _add_note(notes, no_teff & ~has_bp_rp & ~has_b_v & ~negative_ebv, "no Teff: no colour given")
@@ -1174,8 +1208,13 @@ def derive_stellar_parameters(df: pd.DataFrame, logg_guess=None) -> pd.DataFrame
                             "none").astype(object)
     has_g, has_v = np.isfinite(col["g_mag"]), np.isfinite(col["v_mag"])
     no_logl = ~np.isfinite(logl)
-    notes = _add_note(notes, no_logl & has_g, "no L: " + g_route.reason)
-    notes = _add_note(notes, no_logl & has_v & ~has_g, "no L: " + v_route.reason)
+    g_reason = _bc_reason(g_route.reason, no_logl & has_g, teff, BC_G_TEFF_RANGE,
+                          "the G-band bolometric correction (Andrae et al. 2018)")
+    v_reason = _bc_reason(v_route.reason, no_logl & has_v & ~has_g, teff,
+                          tuple(10.0 ** np.array(BC_V_LOG_TEFF_RANGE)),
+                          "the V-band bolometric correction (Torres 2010)")
+    notes = _add_note(notes, no_logl & has_g, "no L: " + g_reason)
+    notes = _add_note(notes, no_logl & has_v & ~has_g, "no L: " + v_reason)
     notes = _add_note(notes, no_logl & ~has_g & ~has_v, "no L: no G or V magnitude")
 
     radius = radius_from_l_teff(logl, teff)
