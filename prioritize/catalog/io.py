@@ -389,10 +389,18 @@ def _csv_header(path: Path, fmt: str) -> list[str]:
 
 def _read_csv(path: Path, fmt: str, text_columns: list[str]) -> pd.DataFrame:
     skipped = _comment_lines(path)
+    separator = _separator(path, fmt)
     try:
-        return pd.read_csv(path, sep=_separator(path, fmt), skiprows=skipped,
-                           dtype={c: str for c in text_columns}, encoding="utf-8-sig",
-                           low_memory=False, float_precision="round_trip")
+        with warnings.catch_warnings():
+            # a first data row longer than the header would silently become an index
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            return pd.read_csv(path, sep=separator, skiprows=skipped, index_col=False,
+                               dtype={c: str for c in text_columns}, encoding="utf-8-sig",
+                               low_memory=False, float_precision="round_trip")
+    except pd.errors.ParserWarning as exc:
+        row, saw, expected = _first_long_row(path, separator, skipped)
+        raise CatalogError(f"has {saw} values but the header has {expected} columns; check the "
+                           "separators and quotes on that line", path=str(path), row=row) from exc
     except pd.errors.ParserError as exc:
         ragged = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
         if ragged is None:
@@ -405,6 +413,21 @@ def _read_csv(path: Path, fmt: str, text_columns: list[str]) -> pd.DataFrame:
         raise _not_utf8(path) from exc
     except (OSError, ValueError) as exc:
         raise _unreadable(path, fmt, exc) from exc
+
+
+def _first_long_row(path: Path, separator: str, skipped: int) -> tuple[int | None, int, int]:
+    """(1-based data row, its number of values, the header's) of the first row with
+    more values than the header."""
+    import csv
+    with _open_text(path) as handle:
+        for _ in range(skipped):
+            handle.readline()
+        rows = csv.reader(handle, delimiter=separator)
+        header = len(next(rows, []))
+        for number, values in enumerate(rows, start=1):
+            if len(values) > header:
+                return number, len(values), header
+    return None, header + 1, header
 
 
 def _first_undecodable_row(path: Path, skipped: int) -> int | None:
@@ -811,13 +834,30 @@ def _plain_json(value):
 STALE_TEMPORARY_S = 3600.0   # a run killed mid-write leaves .NAME.*.part; older than this is stale
 
 
+def _writer_gone(temporary: Path, prefix: str) -> bool:
+    """Whether the temporary's writer (the process id in its name, ``.NAME.pPID.*.part``)
+    no longer runs on this machine."""
+    tag = temporary.name[len(prefix):].split(".", 1)[0]
+    if not (tag.startswith("p") and tag[1:].isdigit()):
+        return False
+    try:
+        os.kill(int(tag[1:]), 0)
+    except ProcessLookupError:
+        return True
+    except OSError:                 # it runs, under another user
+        return False
+    return False
+
+
 def _remove_stale_temporaries(path: Path) -> None:
-    """Delete temporaries of ``path`` left by a run that was killed while writing
-    (older than :data:`STALE_TEMPORARY_S`, so a concurrent writer is not disturbed)."""
+    """Delete temporaries of ``path`` left by a run that was killed while writing: those
+    whose writer's process id no longer runs, and any older than
+    :data:`STALE_TEMPORARY_S` (a concurrent writer is not disturbed)."""
     now = time.time()
-    for old in path.parent.glob(f".{glob.escape(path.name)}.*.part"):
+    prefix = f".{path.name}."
+    for old in path.parent.glob(f"{glob.escape(prefix)}*.part"):
         with contextlib.suppress(OSError):
-            if now - old.stat().st_mtime > STALE_TEMPORARY_S:
+            if _writer_gone(old, prefix) or now - old.stat().st_mtime > STALE_TEMPORARY_S:
                 old.unlink()
 
 
@@ -826,7 +866,8 @@ def atomic_target(path: Path):
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success,
     delete it on failure."""
     _remove_stale_temporaries(path)
-    handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.p{os.getpid()}.",
+                                    suffix=".part")
     os.close(handle)
     temporary = Path(name)
     try:
