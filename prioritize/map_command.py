@@ -11,6 +11,7 @@ exit code 2.
 
 from __future__ import annotations
 
+import math
 from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
@@ -120,6 +121,11 @@ def map_command(
     from .stars.tracks import load_grid
 
     table_format(output, writing=True)
+    for option, value in (("--feh", feh), ("--cluster-age", cluster_age), ("--distance", distance),
+                          ("--ebv", ebv), ("--mass-min", mass_min), ("--mass-max", mass_max),
+                          ("--mass-step", mass_step)):
+        if value is not None and not math.isfinite(value):
+            raise PrioritizeError(f"{option} must be a finite number, got {value}")
     if not output.parent.is_dir():
         raise CatalogError(f"cannot be written: folder {output.parent} does not exist", path=str(output))
     cfg = with_overrides(load_config(config), {

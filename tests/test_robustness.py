@@ -187,6 +187,17 @@ COMMAND_CASES = [
     ("map-mass-range-reversed", lambda tmp, good, ranked, cfg: [
         "map", "--mass-min", "2", "--mass-max", "1", "--eep-points", "12", "-o", str(tmp / "m.csv")], 1),
     ("map-output-unknown-format", lambda tmp, good, ranked, cfg: ["map", *COARSE_MAP, "-o", str(tmp / "m.xyz")], 1),
+    ("map-ebv-nan", lambda tmp, good, ranked, cfg: ["map", "--ebv", "nan", "--cluster-age", "2", "--distance",
+                                                    "100", *COARSE_MAP, "-o", str(tmp / "m.csv")], 1),
+    ("map-mass-step-nan", lambda tmp, good, ranked, cfg: ["map", "--mass-step", "nan", "-o", str(tmp / "m.csv")], 1),
+    ("night-date-february-30", lambda tmp, good, ranked, cfg: ["night", str(ranked), "--site", "mauna-kea",
+                                                               "--date", "2027-02-30"], 1),
+    ("season-period-reversed", lambda tmp, good, ranked, cfg: ["season", str(ranked), "--site", "paranal",
+                                                               "--start", "2027-05-01", "--end", "2027-04-01"], 1),
+    ("rank-instrument-unknown", lambda tmp, good, ranked, cfg: ["rank", str(good), "--instrument", "nope"], 1),
+    ("rank-reference-is-a-catalog", lambda tmp, good, ranked, cfg: ["rank", str(good), "--reference", str(good)], 1),
+    ("rank-tracks-is-a-catalog", lambda tmp, good, ranked, cfg: ["rank", str(good), "--tracks", str(good)], 1),
+    ("demo-output-dir-is-a-file", lambda tmp, good, ranked, cfg: ["demo", "--output-dir", str(good)], 1),
     ("unknown-command", lambda tmp, good, ranked, cfg: ["rnak", str(good)], 1),
 ]
 
@@ -354,3 +365,21 @@ def test_control_characters_are_escaped_so_every_format_reads_back(tmp_path, suf
     assert list(back["star_id"]) == ["a\\x01b", "x\\x0ay", "t\\x09q", 'q"u,o', "n\\x00z", "d\\x7fe", "plain"]
     assert list(back["note"]) == ["bell\\x07"] * len(ids)
     assert meta["run"] == "r\x02"            # metadata is JSON, which escapes on its own
+
+
+def test_value_rules_are_shared_by_check_and_rank(tmp_path, fast_config):
+    """vsini above 0.1 c (c exact, SI) is invalid in check and rank alike; a zero
+    parallax error gets a note in both; a period giving v_eq above 0.1 c is a status."""
+    src = tmp_path / "c.csv"
+    src.write_text(f"{HEADER},parallax_mas_err\n{_good()},0.1\n{_row(vsini_kms=3.1e4)},0.1\n"
+                   f"{_row(prot_d=1e-9).replace('bad', 'spin')},0.1\n{_good('zero')},0\n")
+    check = runner.invoke(app, ["check", str(src), "-c", str(fast_config)])
+    assert check.exit_code == 0
+    assert "vsini_kms = 3.1e+04 km/s is above 0.1 c" in check.output
+    assert "parallax_mas_err = 0: a zero uncertainty" in check.output
+    out = tmp_path / "o.csv"
+    assert runner.invoke(app, ["rank", str(src), "-o", str(out), "-c", str(fast_config)]).exit_code == 0
+    table = pd.read_csv(out).set_index("star_id")
+    assert table.loc["bad", "status"] == st.INVALID_VALUE and "0.1 c" in table.loc["bad", "note"]
+    assert table.loc["spin", "status"] == st.INVALID_VALUE and "above 0.1 c" in table.loc["spin", "note"]
+    assert table.loc["zero", "status"] == st.OK and "zero uncertainty" in table.loc["zero", "note"]
