@@ -43,13 +43,6 @@ app = typer.Typer(
          "Example: prioritize rank candidates.csv -o ranked.parquet\n\n" + CAUTION)
 
 
-
-@app.callback()
-def _global_options(debug: bool = typer.Option(
-        False, "--debug", help="On an internal error, print the full traceback (for a bug report).")):
-    DEBUG["on"] = debug
-
-
 SAMPLE_DIR = Path(__file__).resolve().parents[1] / "sample_catalogs"
 
 ConfigOpt = typer.Option(None, "--config", "-c", exists=True, dir_okay=False,
@@ -177,8 +170,11 @@ def _show_version(value: bool):
 
 @app.callback()
 def _main(version: bool = typer.Option(False, "--version", callback=_show_version, is_eager=True,
-                                       help="Print the version and exit.")):
+                                       help="Print the version and exit."),
+          debug: bool = typer.Option(False, "--debug", help="On an internal error, print the full "
+                                                            "traceback (for a bug report).")):
     """Rank planet-engulfment candidates for lithium follow-up."""
+    DEBUG["on"] = debug
 
 
 @app.command()

@@ -73,7 +73,7 @@ def friendly(func):
 
 
 def _os_error_text(exc: OSError) -> str:
-    where = " ".join(f"{name}" for name in (exc.filename, exc.filename2) if name)
+    where = " ".join(str(name) for name in (exc.filename, exc.filename2) if name)
     return (f"{where + ': ' if where else ''}{exc.strerror or exc}"
             " (check the path, its permissions and the free disk space)")
 
@@ -88,7 +88,6 @@ def run_guarded(run) -> int:
     :data:`EXIT_USER` with one line, anything unexpected -> :data:`EXIT_INTERNAL` with
     :data:`REPORT_HINT` (and the traceback under ``--debug``, :data:`DEBUG`)."""
     DEBUG["on"] = False
-    debug = DEBUG
     try:
         code = run()
         return code if isinstance(code, int) else EXIT_OK
@@ -103,15 +102,19 @@ def run_guarded(run) -> int:
     except PrioritizeError as exc:
         typer.echo(f"error: {exc}", err=True)
         return EXIT_USER
+    except MemoryError:
+        typer.echo("error: out of memory: lower [run] batch_size in the config (stars per batch) "
+                   "or --workers", err=True)
+        return EXIT_USER
     except OSError as exc:
         if exc.errno == errno.EPIPE:             # output piped into `head`: not a fault
             return EXIT_OK
         if exc.errno in _USER_ERRNOS:
             typer.echo(f"error: {_os_error_text(exc)}", err=True)
             return EXIT_USER
-        return _internal(exc, debug["on"])
+        return _internal(exc, DEBUG["on"])
     except Exception as exc:  # noqa: BLE001 - the one place every other failure ends
-        return _internal(exc, debug["on"])
+        return _internal(exc, DEBUG["on"])
 
 
 def _internal(exc: BaseException, debug: bool) -> int:
