@@ -198,6 +198,14 @@ COMMAND_CASES = [
     ("rank-reference-is-a-catalog", lambda tmp, good, ranked, cfg: ["rank", str(good), "--reference", str(good)], 1),
     ("rank-tracks-is-a-catalog", lambda tmp, good, ranked, cfg: ["rank", str(good), "--tracks", str(good)], 1),
     ("demo-output-dir-is-a-file", lambda tmp, good, ranked, cfg: ["demo", "--output-dir", str(good)], 1),
+    ("report-not-a-ranked-table", lambda tmp, good, ranked, cfg: ["report", str(good), "-o", str(tmp / "r.html")], 1),
+    ("report-empty-file", lambda tmp, good, ranked, cfg: ["report", str(_bytes(tmp, "e.csv", "")), "-o",
+                                                          str(tmp / "r.html")], 1),
+    ("report-output-not-html", lambda tmp, good, ranked, cfg: ["report", str(ranked), "-o", str(tmp / "r.xyz")], 1),
+    ("report-output-folder-missing", lambda tmp, good, ranked, cfg: ["report", str(ranked), "-o",
+                                                                     str(tmp / "no" / "r.html")], 1),
+    ("report-night-not-a-plan", lambda tmp, good, ranked, cfg: ["report", str(ranked), "--night", str(good),
+                                                                "-o", str(tmp / "r.html")], 1),
     ("unknown-command", lambda tmp, good, ranked, cfg: ["rnak", str(good)], 1),
 ]
 
@@ -295,7 +303,9 @@ def test_every_command_runs_with_sockets_blocked(ranked, tmp_path, monkeypatch, 
              str(tmp_path / "plan.csv")],
             ["season", str(ranked_path), "--site", "la-silla", "--semester", "2027A", "-o",
              str(tmp_path / "season.csv")],
-            ["map", *COARSE_MAP, "-o", str(tmp_path / "map.csv")]]
+            ["map", *COARSE_MAP, "-o", str(tmp_path / "map.csv")],
+            ["report", str(ranked_path), "--night", str(tmp_path / "plan.csv"), "--season",
+             str(tmp_path / "season.csv"), "-o", str(tmp_path / "report.html")]]
     for argv in runs:
         result = runner.invoke(app, argv)
         assert result.exit_code == 0, (argv[0], result.output)
