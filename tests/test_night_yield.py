@@ -293,5 +293,5 @@ def test_night_command_refuses_an_unwritable_output_before_planning(tmp_path):
     table.to_csv(path, index=False)
     result = CliRunner().invoke(_app(), ["night", str(path), "--site", "mauna-kea", "--date", "2027-03-15",
                                          "-o", str(tmp_path / "missing" / "plan.csv")])
-    assert result.exit_code == 2
+    assert result.exit_code == 1
     assert "does not exist" in result.stderr and "Night plan" not in result.output

@@ -260,11 +260,11 @@ def test_report_command(tmp_path, ranked):
     assert result.exit_code == 0, result.output
     assert (tmp_path / "r.html").exists() and (tmp_path / "r_figures" / "hr_diagram.svg").exists()
     bad = runner.invoke(app, ["report", str(path), "-o", str(tmp_path / "r.txt")])
-    assert bad.exit_code == 2 and "html" in bad.output
+    assert bad.exit_code == 1 and "html" in bad.output
     plain = tmp_path / "plain.csv"
     pd.DataFrame({"a": [1]}).to_csv(plain, index=False)
     missing = runner.invoke(app, ["report", str(plain)])
-    assert missing.exit_code == 2 and "star_id" in missing.output
+    assert missing.exit_code == 1 and "star_id" in missing.output
 
 
 def test_escaping_of_table_text(ranked):
