@@ -144,9 +144,9 @@ def _metadata(cfg, catalog) -> dict:
             "config": cfg.to_dict(), "caution": CAUTION}
 
 
-def _progress():
-    """A progress bar on stderr (tqdm) that advances per batch of stars; None when
-    stderr is not a terminal."""
+def _progress(unit: str = "star"):
+    """A progress bar on stderr (tqdm) that advances per batch of stars (or map points);
+    None when stderr is not a terminal."""
     if not sys.stderr.isatty():
         return None
     from tqdm import tqdm
@@ -155,7 +155,7 @@ def _progress():
 
     def report(done, total):
         if "bar" not in bar:
-            bar["bar"] = tqdm(total=total, unit="star", file=sys.stderr, leave=False, dynamic_ncols=True)
+            bar["bar"] = tqdm(total=total, unit=unit, file=sys.stderr, leave=False, dynamic_ncols=True)
         bar["bar"].update(done - bar["bar"].n)
         if done >= total:
             bar["bar"].close()

@@ -181,11 +181,19 @@ def _checked_points(values, name, lo, hi, unit) -> np.ndarray:
     return np.unique(arr)
 
 
-def _signature(grid, mass, z, eep, cfg, reference):
-    """:func:`signature_at` over chunks of ``SIGNATURE_CHUNK`` points, joined."""
-    parts = [signature_at(grid, mass[s:s + SIGNATURE_CHUNK], z[s:s + SIGNATURE_CHUNK],
-                          eep[s:s + SIGNATURE_CHUNK], cfg, reference)
-             for s in range(0, mass.size, SIGNATURE_CHUNK)]
+PROGRESS_CHUNK = 1000             # points per step when a progress bar is shown
+
+
+def _signature(grid, mass, z, eep, cfg, reference, progress=None):
+    """:func:`signature_at` over chunks of points, joined (``SIGNATURE_CHUNK`` points,
+    or ``PROGRESS_CHUNK`` with ``progress(done, total)`` called after each; every point
+    is computed on its own, so the chunking does not change the result)."""
+    step = SIGNATURE_CHUNK if progress is None else PROGRESS_CHUNK
+    parts = []
+    for s in range(0, mass.size, step):
+        parts.append(signature_at(grid, mass[s:s + step], z[s:s + step], eep[s:s + step], cfg, reference))
+        if progress is not None:
+            progress(min(s + step, mass.size), mass.size)
     return {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
 
 
@@ -212,7 +220,7 @@ def _signature_table(mass, z, eep, sig, cfg: Config) -> pd.DataFrame:
 
 
 def detectability_map(grid: TrackGrid, cfg: Config, feh: float = 0.0, masses=None, eeps=None,
-                      reference=None) -> pd.DataFrame:
+                      reference=None, progress=None) -> pd.DataFrame:
     """Enrichment significance and lifetime over initial mass x evolutionary point.
 
     For every pair (initial mass M, EEP) at Z = 0.02 x 10^[Fe/H], the configured
@@ -273,7 +281,7 @@ def detectability_map(grid: TrackGrid, cfg: Config, feh: float = 0.0, masses=Non
     eeps = _checked_points(eeps, "EEPs", 0.0, N_EEPS - 1, "(fractional EEP)")
     mass, eep = (a.ravel() for a in np.meshgrid(masses, eeps, indexing="ij"))
     zz = np.full(mass.size, z)
-    return _signature_table(mass, zz, eep, _signature(grid, mass, zz, eep, cfg, reference), cfg)
+    return _signature_table(mass, zz, eep, _signature(grid, mass, zz, eep, cfg, reference, progress), cfg)
 
 
 def gaia_photometry(teff_k, logl_lsun, logg, feh, distance_pc, ebv) -> dict:
@@ -340,7 +348,7 @@ def _evenly_in_eep(eep, n_points):
 
 
 def cluster_window(grid: TrackGrid, cfg: Config, age_gyr: float, feh: float, distance_pc: float,
-                   ebv: float, reference=None) -> pd.DataFrame:
+                   ebv: float, reference=None, progress=None) -> pd.DataFrame:
     """The signature and the Gaia magnitudes along a cluster's isochrone.
 
     The isochrone at ``age_gyr`` (age since the ZAMS; the pre-main-sequence phase is
@@ -395,7 +403,7 @@ def cluster_window(grid: TrackGrid, cfg: Config, age_gyr: float, feh: float, dis
     pick = _evenly_in_eep(iso["eep"], ISOCHRONE_POINTS)
     mass, eep = iso["mass"][pick], iso["eep"][pick]
     zz = np.full(mass.size, z)
-    table = _signature_table(mass, zz, eep, _signature(grid, mass, zz, eep, cfg, reference), cfg)
+    table = _signature_table(mass, zz, eep, _signature(grid, mass, zz, eep, cfg, reference, progress), cfg)
     phot = gaia_photometry(table["teff_k"].to_numpy(), table["logl_lsun"].to_numpy(),
                            table["logg"].to_numpy(), z_to_feh(z), distance_pc, ebv)
     table = table.assign(**phot)

@@ -138,11 +138,13 @@ def map_command(
     masses = map_masses(mass_min, mass_max, mass_step)
     eeps = default_map_eeps(eep_points)
     reference = load_baseline_reference(cfg)
-    table = detectability_map(grid, cfg, feh, masses, eeps, reference)
+    from .cli import _progress
+    table = detectability_map(grid, cfg, feh, masses, eeps, reference, progress=_progress("point"))
     window = None
     if cluster:
         age_gyr, distance_pc, reddening = cluster
-        window = cluster_window(grid, cfg, age_gyr, feh, distance_pc, reddening, reference)
+        window = cluster_window(grid, cfg, age_gyr, feh, distance_pc, reddening, reference,
+                                progress=_progress("point"))
 
     thr = cfg.thresholds
     planet = f"{cfg.planet.mass_mjup:g} M_J {cfg.planet.kind.replace('_', ' ')}"

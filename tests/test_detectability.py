@@ -243,3 +243,17 @@ def test_subgiants_of_one_and_a_half_solar_masses_are_favourable(grid):
     strong = sub[(sub["z_enrich"] >= 5.0) & (sub["lifetime_myr"] > 1.0)]
     assert len(strong) > 0
     assert strong["m_cz_msun"].min() < 0.01
+
+
+def test_progress_steps_do_not_change_the_map(grid, cfg, monkeypatch):
+    """With a progress callback the map is computed in smaller steps; every point is its
+    own computation, so the table is identical, and the callback reaches the total."""
+    import prioritize.detectability as det
+    plain = detectability_map(grid, cfg, 0.0, MASSES, EEPS)
+    monkeypatch.setattr(det, "PROGRESS_CHUNK", 7)
+    seen = []
+    stepped = detectability_map(grid, cfg, 0.0, MASSES, EEPS, progress=lambda d, t: seen.append((d, t)))
+    pd.testing.assert_frame_equal(plain, stepped)
+    total = len(MASSES) * len(EEPS)
+    assert len(seen) == -(-total // 7) and seen[-1] == (total, total)
+    assert [d for d, _ in seen] == sorted(d for d, _ in seen)
