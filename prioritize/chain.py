@@ -51,6 +51,7 @@ HISTORY_NODES = 48           # points sampled along the past track for the deepe
 TABLE_MASS_SPLIT = 2         # table of the deepest envelope: the grid's mass steps halved
 RADIUS_FRACTIONAL_ERROR = 0.10  # assumed radius error for v_eq = 2 pi R / P (common practice)
 LIFETIME_CHUNK = 500         # stars per chunk when following tracks into the future (~120 MB)
+STAR_CHUNK = 1000           # stars per sub-chunk of a batch for the per-sample stages (bounds memory)
 EARLY_EEP_STEPS = (0.001, 0.003, 0.01, 0.03, 0.1, 0.3)  # sub-steps after the present point
 PRESERVED_MASS_EEPS = (0.0, 50.0, 100.0, 150.0)  # main-sequence points searched for the Li-preserving layer
 TURNOFF_EEP = PHASE_EEPS["main_sequence"][0] + evolution.TURNOFF_FRACTION * (
@@ -625,26 +626,13 @@ def _without_rejected_values(df: pd.DataFrame, status: np.ndarray) -> pd.DataFra
     return df
 
 
-def _run_batch(df, cfg, grid, rng, reference):
-    grid = grid or load_grid()
+def _star_columns(df, params, route, status, note, cfg, grid, rng, reference, first=0):
+    """The per-star part of the chain for rows of a batch (``first``: the first one's
+    place in the batch): placement, envelope, lithium, lifetimes, odds and the
+    measured-lithium columns.  Returns the output columns so far, the age samples
+    (rows x samples), the main-sequence lifetimes, the model logg, and the rows'
+    status, note and placement route."""
     n = len(df)
-    df = with_cluster_context(df.reset_index(drop=True), cfg)
-    status = df["status"].to_numpy(object).copy()
-    note = df["note"].fillna("").to_numpy(object).copy()
-    given = df                       # what the catalog gave: passed through to the output
-    df = _without_rejected_values(df, status)
-    params = derive_stellar_parameters(df)
-    route = _routes(df, params)
-    active = status == st.OK
-    missing = active & (route == "")
-    status[missing] = st.MISSING_INPUTS
-    why = params["deriv_note"].fillna("").to_numpy(object) if "deriv_note" in params else ""
-    note[missing] = _append(_append(note[missing], "cannot place on tracks: give mass+stage, or a "
-                                    "Teff/colour with parallax, distance, log L or logg"),
-                            np.asarray(why, dtype=object)[missing] if len(why) else "")
-    route = np.where(active & ~missing, route, "")
-    df, params = _with_seismic_parameters(df, params, route, cfg)
-
     star, mass, z, eep, placed, pnote, chi2 = _place(df, params, route, grid, cfg, rng)
     note = _append(note, pnote)
     # a metallicity far outside the tracks is not extrapolated (the map refuses it too)
@@ -666,7 +654,7 @@ def _run_batch(df, cfg, grid, rng, reference):
     unplaced = (route != "") & ~placed
     status[unplaced] = st.OUT_OF_MODEL_RANGE
     out = pd.DataFrame({"star_id": df["star_id"].astype(str).to_numpy() if "star_id" in df
-                        else np.arange(1, n + 1).astype(str)})
+                        else np.arange(first + 1, first + n + 1).astype(str)})
     composition = planet_composition(cfg)
     s = cfg.scoring.samples_per_star
     idx = np.unique(star)
@@ -793,7 +781,51 @@ def _run_batch(df, cfg, grid, rng, reference):
         "veq_from_period_kms": 2.0 * np.pi * out["radius_rsun"].to_numpy(float) * R_SUN_CM / 1e5
         / (np.where(period > 0, period, np.nan) * 86400.0),
         "age_gyr": out["age_gyr"].to_numpy(float)}, status, note)
-    _rotation_columns(out, df, params, ages, cfg, _scatter(n, idx, res.get("t_ms_myr"), float))
+    t_ms = _scatter(n, idx, res.get("t_ms_myr"), float)
+    return out, ages, t_ms, model_logg, status, note, route
+
+
+def _run_batch(df, cfg, grid, rng, reference):
+    grid = grid or load_grid()
+    n = len(df)
+    df = with_cluster_context(df.reset_index(drop=True), cfg)
+    status = df["status"].to_numpy(object).copy()
+    note = df["note"].fillna("").to_numpy(object).copy()
+    given = df                       # what the catalog gave: passed through to the output
+    df = _without_rejected_values(df, status)
+    params = derive_stellar_parameters(df)
+    route = _routes(df, params)
+    active = status == st.OK
+    missing = active & (route == "")
+    status[missing] = st.MISSING_INPUTS
+    why = params["deriv_note"].fillna("").to_numpy(object) if "deriv_note" in params else ""
+    note[missing] = _append(_append(note[missing], "cannot place on tracks: give mass+stage, or a "
+                                    "Teff/colour with parallax, distance, log L or logg"),
+                            np.asarray(why, dtype=object)[missing] if len(why) else "")
+    route = np.where(active & ~missing, route, "")
+    df, params = _with_seismic_parameters(df, params, route, cfg)
+
+    # the per-sample stages (placement, envelope, lithium, lifetimes) in sub-chunks of
+    # STAR_CHUNK stars: every star's numbers depend on its own row only, so this bounds
+    # the memory without changing a number; what is fitted per batch (the clusters'
+    # rotation sequences) is fitted below on the whole batch
+    size = STAR_CHUNK if isinstance(rng, placement.RowUniforms) else n
+    parts = []
+    for a in range(0, max(n, 1), max(1, size)):
+        b = min(a + size, n)
+        sub = (df, params) if (a, b) == (0, n) else \
+            (df.iloc[a:b].reset_index(drop=True), params.iloc[a:b].reset_index(drop=True))
+        parts.append(_star_columns(*sub, route[a:b].copy(), status[a:b].copy(), note[a:b], cfg, grid,
+                                   rng if (a, b) == (0, n) else rng.subset(np.arange(a, b)),
+                                   reference, first=a))
+    if len(parts) == 1:
+        out, ages, t_ms, model_logg, status, note, route = parts[0]
+    else:
+        out = pd.concat([part[0] for part in parts], ignore_index=True)
+        ages, t_ms, model_logg, status, note, route = (np.concatenate([part[k] for part in parts])
+                                                       for k in range(1, 7))
+    del parts
+    _rotation_columns(out, df, params, ages, cfg, t_ms)
     _observing_columns(out, df, model_logg, cfg, params["ebv_used"].to_numpy(float))
     out["p_engulfed"] = score.engulfed_posterior(out["p_engulfed_history"],
                                                  out["rotation_likelihood_ratio"])
