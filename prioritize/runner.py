@@ -63,6 +63,20 @@ def warm_up(grid: TrackGrid) -> None:
     from .stars.placement import _dense_grid
     deepest_envelope_table(grid)
     _dense_grid(grid)
+    _release_free_memory()
+
+
+def _release_free_memory() -> None:
+    """Give the C heap's free pages back to the system (glibc ``malloc_trim``), e.g. the
+    temporaries of building the dense placement grid (~120 MB), before worker processes
+    are forked; a no-op where the C library has no such call."""
+    import ctypes
+    import ctypes.util
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        libc.malloc_trim(0)
+    except (OSError, AttributeError):
+        pass
 
 
 _WORKER: dict = {}
@@ -162,6 +176,7 @@ def rank_table(df: pd.DataFrame, cfg: Config, grid: TrackGrid | None = None,
     reference = load_baseline_reference(cfg)
     parts = list(map_batches(df, cfg, grid, reference, workers=workers, progress=progress))
     out = pd.concat(parts, ignore_index=True) if parts else run_batch(df, cfg, grid, None, reference)
+    del parts                       # the batches' frames: the table is held once from here
     return score.assign_ranks(out)
 
 

@@ -65,11 +65,15 @@ def assign_ranks(table: pd.DataFrame) -> pd.DataFrame:
     """Sort computed rows by priority (highest first), then the rest in input order,
     and number the computed rows 1..n in the ``rank`` column (a nullable integer:
     missing for the rows that are not ranked)."""
-    ok = (table["status"] == st.OK) & table["priority"].notna()
-    ranked = table[ok].sort_values(["priority", "z_enrich"], ascending=False, kind="stable")
-    out = pd.concat([ranked, table[~ok]], ignore_index=True)
+    ok = ((table["status"] == st.OK) & table["priority"].notna()).to_numpy()
+    # the order from the two sort keys alone, then one copy of the table (a survey's
+    # table is large: no intermediate sorted and concatenated copies)
+    keys = table[["priority", "z_enrich"]].reset_index(drop=True)[ok]
+    order = keys.sort_values(["priority", "z_enrich"], ascending=False, kind="stable").index.to_numpy()
+    n_ranked = order.size
+    out = table.take(np.r_[order, np.flatnonzero(~ok)]).reset_index(drop=True)
     # whole numbers, empty (not NaN) for rows that are not ranked
-    out["rank"] = pd.array(np.r_[np.arange(1, len(ranked) + 1), np.zeros(int((~ok).sum()), int)],
+    out["rank"] = pd.array(np.r_[np.arange(1, n_ranked + 1), np.zeros(int((~ok).sum()), int)],
                            dtype="Int64")
-    out.loc[len(ranked):, "rank"] = pd.NA
+    out.loc[n_ranked:, "rank"] = pd.NA
     return out

@@ -790,7 +790,13 @@ def load_grid(path=None):
     meta = table.schema.metadata or {}
     provenance = json.loads(meta[PROVENANCE_METADATA_KEY]) if PROVENANCE_METADATA_KEY in meta else {"source": str(source)}
     columns = {name: _arrow_to_numpy(table.column(name)) for name in table.column_names}
-    return _grid_from_arrays(columns, provenance, str(source))
+    grid = _grid_from_arrays(columns, provenance, str(source))
+    del table, columns
+    # the long-format Parquet buffers are freed here; Arrow's allocator would keep their
+    # pages (~160 MB for the built-in grid) in every process forked afterwards
+    import pyarrow as pa
+    pa.default_memory_pool().release_unused()
+    return grid
 
 
 def _arrow_to_numpy(column):
