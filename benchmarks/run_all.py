@@ -1,6 +1,6 @@
 """Run every benchmark script in this folder in turn (``make bench``).
 
-``bench_rank.py`` runs here on 2 x 10^4 rows with 1 and 2 workers (about 5 minutes on
+``bench_rank.py`` runs here on 2 x 10^4 rows with 1 and 2 workers (a few minutes on
 2 shared cores); run it alone with ``--rows 100000,1000000`` for the survey sizes.
 """
 
